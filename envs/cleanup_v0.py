@@ -1,0 +1,160 @@
+"""cleanup_v0 — a public good: a river that must be kept clean for the orchard to grow.
+
+=====================  ===================================================================
+Agents                 ``num_agents`` (default 5), ids ``agent_0`` ...
+Observation            ``Box(0, 1, (9, 2r+1, 2r+1), uint8)``, r = ``view_radius`` (default 7)
+Actions                ``Discrete(7)``: stay, up, down, left, right, tag, clean (``Discrete(6)`` untagged)
+State                  ``Box(0, 1, (9, H, W), uint8)``
+=====================  ===================================================================
+
+**Description.** Waste builds up on a river; the orchard, away from the river, grows resources only while
+the river is clean enough. Cleaning pays nothing directly and takes an agent away from the orchard, so each
+agent would rather the others clean: a public-goods dilemma (after Hughes et al. 2018, "Inequity aversion
+improves cooperation in intertemporal social dilemmas"). Agents can also tag each other out for a while.
+
+**Actions.** ``0`` stay, ``1`` up, ``2`` down, ``3`` left, ``4`` right (absolute moves; an agent faces the
+way it last moved), ``5`` tag (absent when ``tagging`` is false; then clean is ``5``), ``6`` clean: a beam
+``clean_length`` cells ahead and ``clean_width`` lanes wide that removes the waste it covers.
+
+**Observation.** An egocentric window of uint8 0/1 channels, channels first, in the order of
+``envs.grid.CHANNELS``: wall, resource, waste, river, orchard, agents, self, ahead, frozen (see
+``envs.grid``). With ``full_view`` it is the whole ``(9, H, W)`` map. ``state()`` is the whole map.
+
+**Rewards.** +1 per resource taken; cleaning earns nothing; ``-tag_cost`` per tag beam fired;
+``-tagged_penalty`` when tagged.
+
+**Dynamics** (each step, after moves and beams, in this order):
+
+1. every clean river cell becomes polluted with probability ``waste_spawn_prob``;
+2. with w the polluted fraction of the river, every empty orchard cell with no agent on it grows a resource
+   with probability ``spawn_prob_max * clip((depletion_threshold - w) / (depletion_threshold -
+   restoration_threshold), 0, 1)``: the full rate at or below the restoration threshold, falling linearly
+   to zero at the depletion threshold, zero above it.
+
+The shape of this rule and the defaults of the three thresholds follow Hughes et al. 2018 (from memory, low
+confidence: maximum spawn 0.05, depletion 0.4, restoration 0). The waste rate is our own parameterisation
+(per clean river cell, not per river), with a default chosen so that an unattended river crosses the
+depletion threshold after about 100 steps (1 - 0.995^100 = 0.39), a tenth of a default episode, while one
+diligent cleaner can hold it well below.
+
+**Starting state.** Resources on the ``+`` cells, waste on the ``w`` cells of the layout; agents at distinct
+random spawn points, facing a random way.
+
+**Episode end.** Truncation after ``max_cycles`` steps, for every agent at once. There is no termination.
+
+**Infos** (per agent, per step): ``resources_taken``, ``tags_fired``, ``times_tagged``, ``frozen``,
+``waste_removed`` (waste cells its clean beam covered).
+
+**Arguments** — the grid arguments of ``harvest_v0`` (layout default ``cleanup_small``), and:
+
+=====================  =====  =======  ==========================================================
+name                   type   default  meaning
+=====================  =====  =======  ==========================================================
+clean_length           int    5        clean beam reach in cells
+clean_width            int    3        clean beam lanes (odd)
+waste_spawn_prob       float  0.005    chance per step that a clean river cell becomes polluted
+spawn_prob_max         float  0.05     orchard growth chance per empty cell with a clean river
+depletion_threshold    float  0.4      polluted river fraction at and above which nothing grows
+restoration_threshold  float  0.0      polluted fraction at and below which growth is at full rate
+=====================  =====  =======  ==========================================================
+
+**Version history.** v0: first release.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+from pettingzoo.utils.conversions import parallel_to_aec
+
+from envs.core import GameParallelEnv
+from envs.errors import LayoutError, ParamError
+from envs.grid import _S_GROW, _S_WASTE, GridGame, _odd, grid_params
+from envs.layouts import Layout
+from envs.params import Param
+
+__all__ = ["NAME", "PARAMS", "CleanupGame", "CleanupParallelEnv", "parallel_env", "env", "vector_env"]
+
+NAME = "cleanup_v0"
+
+PARAMS: list[Param] = grid_params("cleanup_small", [
+    Param("clean_length", int, 5, "clean beam reach in cells", low=1, high=50),
+    Param("clean_width", int, 3, "clean beam width in lanes (odd)", low=1, high=9, check=_odd),
+    Param("waste_spawn_prob", float, 0.005, "chance per step that a clean river cell becomes polluted",
+          low=0.0, high=1.0),
+    Param("spawn_prob_max", float, 0.05, "orchard growth chance per empty cell while the river is clean",
+          low=0.0, high=1.0),
+    Param("depletion_threshold", float, 0.4, "polluted river fraction at and above which nothing grows",
+          low=0.0, high=1.0),
+    Param("restoration_threshold", float, 0.0, "polluted fraction at and below which growth is at full rate",
+          low=0.0, high=1.0),
+])
+
+
+class CleanupGame(GridGame):
+    """The batched cleanup engine (see the module docstring)."""
+
+    name: ClassVar[str] = NAME
+    PARAMS: ClassVar[list[Param]] = PARAMS
+    has_clean_beam: ClassVar[bool] = True
+    info_keys: ClassVar[tuple[str, ...]] = GridGame.info_keys + ("waste_removed",)
+
+    def __init__(self, num_envs: int = 1, **params: Any):
+        super().__init__(num_envs, **params)
+        p = self.params
+        if p["restoration_threshold"] >= p["depletion_threshold"]:
+            raise ParamError(f"{NAME}: parameter 'restoration_threshold' = {p['restoration_threshold']} is "
+                             f"not allowed; expected less than depletion_threshold = "
+                             f"{p['depletion_threshold']}")
+        self.river = self.layout.river
+        self.river_cells = int(self.river.sum())
+
+    def _check_layout(self, layout: Layout) -> None:
+        for layer, what in ((layout.orchard, "orchard cells ('+' or '-')"), (layout.river, "river cells "
+                                                                                           "('~' or 'w')")):
+            if not layer.any():
+                raise LayoutError(f"layout {layout.name}: cleanup needs {what}; found none")
+
+    def waste_fraction(self) -> np.ndarray:
+        """(B,) polluted fraction of the river in each copy."""
+        return self.interior(self.waste).sum(axis=(1, 2)) / self.river_cells
+
+    def spawn_prob(self, fraction: np.ndarray) -> np.ndarray:
+        """Orchard growth probability for a polluted river ``fraction`` (see the module docstring)."""
+        p = self.params
+        lo, hi = p["restoration_threshold"], p["depletion_threshold"]
+        return p["spawn_prob_max"] * np.clip((hi - np.asarray(fraction, np.float64)) / (hi - lo), 0.0, 1.0)
+
+    def _grow(self) -> None:
+        B = self.num_envs
+        waste = self.interior(self.waste)
+        b, y, x, u = self._draw(_S_WASTE, self.river & ~waste)
+        keep = u < self.params["waste_spawn_prob"]
+        self.waste[b[keep], y[keep], x[keep]] = True
+        prob = self.spawn_prob(self.waste_fraction())
+        b, y, x, u = self._draw(_S_GROW, self._free_orchard() & (prob > 0)[:, None, None])
+        keep = u < prob[b]
+        self.resource.reshape(B, -1)[b[keep], y[keep] * self.Wp + x[keep]] = True
+
+
+class CleanupParallelEnv(GameParallelEnv):
+    """PettingZoo ``ParallelEnv`` of cleanup (one copy of :class:`CleanupGame`)."""
+
+    metadata: ClassVar[dict[str, Any]] = {"name": NAME, "render_modes": ["rgb_array", "ansi"], "render_fps": 8}
+    engine_class = CleanupGame
+
+
+def parallel_env(render_mode: str | None = None, **params: Any) -> CleanupParallelEnv:
+    """Cleanup as a PettingZoo ``ParallelEnv``."""
+    return CleanupParallelEnv(render_mode=render_mode, **params)
+
+
+def env(render_mode: str | None = None, **params: Any):
+    """Cleanup as a PettingZoo AEC env (``parallel_to_aec`` of :func:`parallel_env`)."""
+    return parallel_to_aec(parallel_env(render_mode=render_mode, **params))
+
+
+def vector_env(num_envs: int, **params: Any) -> CleanupGame:
+    """``num_envs`` copies of cleanup stepped together (see ``envs.core``)."""
+    return CleanupGame(num_envs=num_envs, **params)

@@ -1,0 +1,444 @@
+"""The batched grid engine shared by ``harvest_v0`` and ``cleanup_v0``.
+
+B copies of a map with N agents each are held as arrays and advanced by one ``step(actions[B, N])`` made of
+whole-array numpy operations; there is no Python loop over copies or agents on the step path. The games
+differ only in how resources (and, for cleanup, waste) appear, which subclasses supply in :meth:`_grow`.
+
+Observation channels (``CHANNELS``; every observation and ``state()`` is ``uint8`` 0/1, channels first
+so a torch convolution takes it as it is):
+
+=========  ============================================================================================
+channel    set where
+=========  ============================================================================================
+wall       a wall, or a cell outside the map
+resource   a resource stands
+waste      waste lies on the river (cleanup)
+river      a river cell (cleanup)
+orchard    a cell where resources can grow (harvest patches, cleanup orchard)
+agents     another agent on the map (``state()``: every agent on the map)
+self       the observer's own cell (``state()``: all zero)
+ahead      the cell the observer faces, where its beams start (``state()``: the cell ahead of every agent)
+frozen     the whole window while the observer is frozen (``state()``: the cell each frozen agent left)
+=========  ============================================================================================
+
+Step order, for every copy at once:
+
+1. Frozen agents sit out: their actions are ignored.
+2. Moves: an agent that moves turns to face the direction it chose, even if the move is blocked. It enters
+   the target cell only if the cell is no wall and was empty at the start of the step; when several agents
+   want the same empty cell, one chosen at random (from the env's own seeded generator) gets it. So two
+   agents never share a cell, and an agent cannot follow another into the cell it is leaving this step.
+3. An agent standing on a resource takes it (+1).
+4. Beams fire from the new positions, the way the agent faces: ``length`` cells ahead, ``width`` lanes
+   (odd; centred on the agent's line), each lane stopped by the first wall. Beams pass through agents.
+   A tag beam freezes every agent it hits: that agent leaves the map and sits out the next
+   ``freeze_steps`` steps; the tagger pays ``tag_cost`` per beam fired, the victim ``tagged_penalty`` once.
+   The clean beam (cleanup) removes the waste it covers.
+5. Frozen agents whose time is up return at a random free spawn point (if none is free, they wait).
+6. The game grows resources / waste (see each game).
+7. After ``max_cycles`` steps every agent is truncated (there is no termination).
+
+Randomness during a step comes from a counter-based generator: a 64-bit key drawn at reset from the copy's
+own seeded ``numpy`` generator, hashed with the step number and the cell or agent index (the SplitMix64
+output function, Steele, Lea & Flood 2014). A copy's draws therefore do not depend on how many copies run
+beside it, which is what makes copy ``b`` of a batch equal to a single env.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+from gymnasium import spaces
+from numpy.lib.stride_tricks import sliding_window_view
+
+from envs.core import BatchedGame
+from envs.errors import ParamError
+from envs.layouts import Layout, layout_problem, load_layout
+from envs.params import Param, resolve
+
+__all__ = ["CHANNELS", "MOVE_ACTIONS", "GridGame", "grid_params"]
+
+CHANNELS: tuple[str, ...] = ("wall", "resource", "waste", "river", "orchard", "agents", "self", "ahead",
+                             "frozen")
+MOVE_ACTIONS: tuple[str, ...] = ("stay", "up", "down", "left", "right")
+
+# bit layout of the packed map: one uint8 per cell, one bit per map channel
+_BIT = {"wall": 0, "resource": 1, "waste": 2, "river": 3, "orchard": 4, "agents": 5}
+_ZERO_BIT = 7  # never set; channels filled per observer read it and come out 0
+_SHIFTS = np.array([_BIT.get(c, _ZERO_BIT) for c in CHANNELS], dtype=np.uint8)[:, None, None]  # (C, 1, 1)
+_CH = {c: i for i, c in enumerate(CHANNELS)}
+
+# (dy, dx) of up, down, left, right; a facing value indexes this table
+_DIRS = np.array([[-1, 0], [1, 0], [0, -1], [0, 1]], dtype=np.int64)
+
+# random streams of the counter-based generator
+_S_MOVE, _S_RESPAWN, _S_GROW, _S_WASTE = range(4)
+_N_STREAMS = 4
+_GOLDEN = 0x9E3779B97F4A7C15
+_MASK64 = (1 << 64) - 1
+_M1 = np.uint64(0xBF58476D1CE4E5B9)
+_M2 = np.uint64(0x94D049BB133111EB)
+
+
+def _mix(z: np.ndarray) -> np.ndarray:
+    """SplitMix64 output function (Steele, Lea & Flood 2014) on a uint64 array."""
+    z = (z ^ (z >> np.uint64(30))) * _M1
+    z = (z ^ (z >> np.uint64(27))) * _M2
+    return z ^ (z >> np.uint64(31))
+
+
+def _odd(v: int) -> str | None:
+    return None if v % 2 == 1 else "an odd integer (lanes centred on the agent's line)"
+
+
+def grid_params(layout: str, extra: list[Param]) -> list[Param]:
+    """Parameters shared by the grid games, then the game's own ``extra`` ones."""
+    return [
+        Param("layout", str, layout, "bundled layout name or path of a layout file", check=layout_problem),
+        Param("num_agents", int, 5, "number of agents (1 up to the layout's spawn points)", low=1, high=10),
+        Param("max_cycles", int, 1000, "steps per episode; then every agent is truncated", low=1),
+        Param("view_radius", int, 7, "observation window is (2r+1) x (2r+1) around the agent", low=1),
+        Param("full_view", bool, False, "observe the whole map (H x W, not egocentric) instead of a window"),
+        Param("tagging", bool, True, "agents have a tag action"),
+        Param("tag_length", int, 5, "tag beam reach in cells", low=1, high=50),
+        Param("tag_width", int, 1, "tag beam width in lanes (odd)", low=1, high=9, check=_odd),
+        Param("tag_cost", float, 0.0, "reward paid by the tagger per tag beam fired", low=0.0),
+        Param("tagged_penalty", float, 0.0, "reward lost by an agent when it is tagged", low=0.0),
+        Param("freeze_steps", int, 25, "steps a tagged agent sits out, off the map", low=0),
+        *extra,
+    ]
+
+
+class GridGame(BatchedGame):
+    """Batched grid world; ``harvest_v0`` and ``cleanup_v0`` subclass it.
+
+    Shape:
+        actions: (B, N) int in [0, A)
+        obs: (B, N, C, 2r+1, 2r+1) uint8 (``full_view``: (B, N, C, H, W)), C = len(CHANNELS)
+        rewards: (B, N) float32;  terminated, truncated: (B, N) bool
+        infos: dict of (B, N) int64 event counts of the step (``info_keys``)
+        state(): (B, C, H, W) uint8
+    """
+
+    PARAMS: ClassVar[list[Param]] = []
+    has_clean_beam: ClassVar[bool] = False
+    info_keys: ClassVar[tuple[str, ...]] = ("resources_taken", "tags_fired", "times_tagged", "frozen")
+
+    def __init__(self, num_envs: int = 1, **params: Any):
+        self.num_envs = B = self.check_num_envs(self.name, num_envs)
+        p = self.params = resolve(self.name, self.PARAMS, params)
+        self.layout: Layout = load_layout(p["layout"])
+        self._check_layout(self.layout)
+        H, W = self.layout.shape
+        S = len(self.layout.spawn)
+        N = p["num_agents"]
+        if N > S:
+            raise ParamError(f"{self.name}: parameter 'num_agents' = {N} is not allowed; layout "
+                             f"'{p['layout']}' has {S} spawn points, so expected 1..{S}")
+        r = p["view_radius"]
+        if not p["full_view"] and r > max(H, W):
+            raise ParamError(f"{self.name}: parameter 'view_radius' = {r} is not allowed; expected 1.."
+                             f"{max(H, W)} (the larger side of layout '{p['layout']}'), or full_view")
+        self.possible_agents = [f"agent_{i}" for i in range(N)]
+        self.max_cycles = p["max_cycles"]
+        names = list(MOVE_ACTIONS)
+        self.tag_action = len(names) if p["tagging"] else -1
+        if p["tagging"]:
+            names.append("tag")
+        self.clean_action = len(names) if self.has_clean_beam else -1
+        if self.has_clean_beam:
+            names.append("clean")
+        self.action_names = tuple(names)
+        self.action_space = spaces.Discrete(len(names))
+
+        # geometry: every map layer is padded by P wall cells so windows and beams never leave the array
+        beams = [(p["tag_length"], p["tag_width"])]
+        if self.has_clean_beam:
+            beams.append((p["clean_length"], p["clean_width"]))
+        reach = [0 if p["full_view"] else r, self._reach(p)] + [max(n, w // 2) for n, w in beams]
+        self.P = P = max(reach) + 1
+        self.H, self.W, self.Hp, self.Wp = H, W, H + 2 * P, W + 2 * P
+        self.k = (H, W) if p["full_view"] else (2 * r + 1, 2 * r + 1)
+        C = len(CHANNELS)
+        self.observation_space = spaces.Box(0, 1, (C, *self.k), np.uint8)
+        self.state_space = spaces.Box(0, 1, (C, H, W), np.uint8)
+
+        def pad(a: np.ndarray, fill: bool = False) -> np.ndarray:
+            return np.pad(a, P, constant_values=fill)
+
+        self.wall_f = pad(self.layout.wall, True).ravel()
+        self.orchard = self.layout.orchard
+        static = (pad(self.layout.wall, True).astype(np.uint8) << _BIT["wall"]
+                  | pad(self.layout.river).astype(np.uint8) << _BIT["river"]
+                  | pad(self.layout.orchard).astype(np.uint8) << _BIT["orchard"])
+        self._static_bits = static
+        self.spawn_f = (self.layout.spawn[:, 0] + P) * self.Wp + self.layout.spawn[:, 1] + P  # (S,)
+        self._dir_f = _DIRS[:, 0] * self.Wp + _DIRS[:, 1]  # flat step of each direction
+        self._beam_tag = self._beam_offsets(*beams[0])
+        self._beam_clean = self._beam_offsets(*beams[1]) if self.has_clean_beam else None
+
+        # dynamic state, all padded and flat-indexable: cell = (y + P) * Wp + (x + P)
+        self._bi = np.arange(B)[:, None]
+        self.cell = np.zeros((B, N), np.int64)
+        self.facing = np.zeros((B, N), np.int64)
+        self.out = np.zeros((B, N), bool)
+        self.frozen_left = np.zeros((B, N), np.int64)
+        self.resource = np.zeros((B, self.Hp, self.Wp), bool)
+        self.waste = np.zeros((B, self.Hp, self.Wp), bool)
+        self.key = np.zeros(B, np.uint64)
+        self.t = 0
+        self._occ = np.zeros((B, self.Hp * self.Wp), np.int8)  # agent index + 1, 0 = empty
+        self._bits = np.zeros((B, self.Hp, self.Wp), np.uint8)
+        self._windows = sliding_window_view(self._bits, self.k, axis=(1, 2))
+        self._rngs: list[np.random.Generator] | None = None
+        self.last_beams: list[tuple[str, np.ndarray, np.ndarray, np.ndarray]] = []  # kind, copy, cells, reach
+
+    # ------------------------------------------------------------------ set-up helpers
+    def _check_layout(self, layout: Layout) -> None:
+        """Games reject layouts that lack what they need."""
+
+    def _reach(self, params: dict[str, Any]) -> int:
+        """How far (in cells) the game's own rules look around a cell; the padding covers it."""
+        return 0
+
+    def _beam_offsets(self, length: int, width: int) -> np.ndarray:
+        """(4, length, width) flat offsets of the beam cells for each facing."""
+        out = np.zeros((4, length, width), np.int64)
+        for f, (dy, dx) in enumerate(_DIRS):
+            sy, sx = dx, -dy  # a perpendicular
+            for i in range(length):
+                for j in range(width):
+                    s = j - width // 2
+                    out[f, i, j] = ((i + 1) * dy + s * sy) * self.Wp + (i + 1) * dx + s * sx
+        return out
+
+    # ------------------------------------------------------------------ randomness
+    def _uniform(self, stream: int, b: np.ndarray, idx: np.ndarray) -> np.ndarray:
+        """Uniform [0, 1) draws for copies ``b`` at indices ``idx`` (same shape), this step, this stream."""
+        salt = np.uint64(((self.t * _N_STREAMS + stream + 1) * _GOLDEN) & _MASK64)
+        base = _mix(self.key + salt)  # (B,)
+        z = _mix(base[b] + (idx.astype(np.uint64) + np.uint64(1)) * np.uint64(_GOLDEN))
+        return (z >> np.uint64(11)).astype(np.float64) * (1.0 / (1 << 53))
+
+    # ------------------------------------------------------------------ reset
+    def reset(self, seed: int | None = None):
+        if seed is not None or self._rngs is None:
+            self._rngs = self.copy_rngs(seed, self.num_envs)
+        N, S = self.num_agents, len(self.layout.spawn)
+        for b, g in enumerate(self._rngs):  # reset only; the step path has no loop over copies
+            self.key[b] = g.integers(0, 2**64 - 1, dtype=np.uint64, endpoint=True)
+            self.cell[b] = self.spawn_f[g.permutation(S)[:N]]
+            self.facing[b] = g.integers(0, 4, N)
+        P, H, W = self.P, self.H, self.W
+        self.resource[:] = False
+        self.resource[:, P:P + H, P:P + W] = self.layout.resource
+        self.waste[:] = False
+        self.waste[:, P:P + H, P:P + W] = self.layout.waste
+        self.out[:] = False
+        self.frozen_left[:] = 0
+        self.t = 0
+        self.last_beams = []
+        self._place_agents()
+        zeros = np.zeros((self.num_envs, N), np.int64)
+        return self._observe(), {k: zeros for k in self.info_keys}
+
+    # ------------------------------------------------------------------ step
+    def step(self, actions: Any):
+        a = self.check_actions(actions)
+        B, N = a.shape
+        bi = self._bi
+        was_out = self.out.copy()
+        active = ~was_out
+        rewards = np.zeros((B, N), np.float32)
+
+        # 2. moves
+        moving = active & (a >= 1) & (a <= 4)
+        d = np.where(moving, a - 1, 0)
+        self.facing = np.where(moving, d, self.facing)
+        target = self.cell + np.where(moving, self._dir_f[d], 0)
+        free = ~self.wall_f[target] & (self._occ[bi, target] == 0)
+        want = moving & free
+        if want.any():
+            prio = self._uniform(_S_MOVE, np.broadcast_to(bi, (B, N)), np.broadcast_to(np.arange(N), (B, N)))
+            rival = ((target[:, :, None] == target[:, None, :]) & want[:, None, :]
+                     & (prio[:, None, :] > prio[:, :, None]))
+            won = want & ~rival.any(axis=2)
+            self.cell = np.where(won, target, self.cell)
+            self._place_agents()
+
+        # 3. resources taken
+        res_f = self.resource.reshape(B, -1)
+        took = active & res_f[bi, self.cell]
+        tb, tn = np.nonzero(took)
+        res_f[tb, self.cell[tb, tn]] = False
+        rewards += took
+
+        # 4. beams
+        self.last_beams = []
+        tags_fired = np.zeros((B, N), np.int64)
+        times_tagged = np.zeros((B, N), np.int64)
+        if self.tag_action >= 0:
+            fire = active & (a == self.tag_action)
+            if fire.any():
+                fb, fn, cells, reach = self._beam(fire, self._beam_tag)
+                victims = self._occ[fb[:, None, None], cells] * reach  # agent index + 1, 0 = none
+                hits = np.bincount((fb[:, None, None] * (N + 1) + victims).ravel(), minlength=B * (N + 1))
+                times_tagged = hits.reshape(B, N + 1)[:, 1:].astype(np.int64)
+                tagged = times_tagged > 0
+                tags_fired = fire.astype(np.int64)
+                rewards -= np.float32(self.params["tag_cost"]) * fire
+                rewards -= np.float32(self.params["tagged_penalty"]) * tagged
+                self.out |= tagged
+                self.frozen_left = np.where(tagged, self.params["freeze_steps"], self.frozen_left)
+                self.last_beams.append(("tag", fb, cells, reach))
+        waste_removed = None
+        if self.clean_action >= 0:
+            waste_removed = np.zeros((B, N), np.int64)
+            fire = active & (a == self.clean_action)
+            if fire.any():
+                fb, fn, cells, reach = self._beam(fire, self._beam_clean)
+                wf = self.waste.reshape(B, -1)
+                hit = wf[fb[:, None, None], cells] & reach
+                waste_removed[fb, fn] = hit.sum(axis=(1, 2))
+                k, i, j = np.nonzero(hit)
+                wf[fb[k], cells[k, i, j]] = False
+                self.last_beams.append(("clean", fb, cells, reach))
+
+        # 5. frozen agents count down and return
+        self.frozen_left -= was_out & (self.frozen_left > 0)
+        if self.out.any():
+            self._place_agents()
+            self._respawn(self.out & (self.frozen_left == 0))
+
+        # 6. growth
+        self._grow()
+
+        # 7. time
+        self.t += 1
+        trunc = np.full((B, N), self.t >= self.max_cycles)
+        infos = {"resources_taken": took.astype(np.int64), "tags_fired": tags_fired,
+                 "times_tagged": times_tagged, "frozen": was_out.astype(np.int64)}
+        if waste_removed is not None:
+            infos["waste_removed"] = waste_removed
+        return self._observe(), rewards, np.zeros((B, N), bool), trunc, infos
+
+    def _beam(self, fire: np.ndarray, offsets: np.ndarray):
+        """Cells ``(K, L, w)`` and wall-stopped reach of the beams fired by the ``K`` agents in ``fire``."""
+        fb, fn = np.nonzero(fire)
+        cells = self.cell[fb, fn][:, None, None] + offsets[self.facing[fb, fn]]
+        reach = np.logical_and.accumulate(~self.wall_f[cells], axis=1)
+        return fb, fn, cells, reach
+
+    def _place_agents(self) -> None:
+        """Rebuild the occupancy map from the agents on the map."""
+        self._occ.fill(0)
+        b, n = np.nonzero(~self.out)
+        self._occ[b, self.cell[b, n]] = n + 1
+
+    def _respawn(self, waiting: np.ndarray) -> None:
+        """Put ``waiting`` agents back at random free spawn points; clashes and full maps wait a step."""
+        if not waiting.any():
+            return
+        B, N = waiting.shape
+        S = len(self.spawn_f)
+        bi = self._bi
+        idx = np.arange(N)[:, None] * S + np.arange(S)[None, :]  # (N, S)
+        score = self._uniform(_S_RESPAWN, np.broadcast_to(bi[:, :, None], (B, N, S)),
+                              np.broadcast_to(idx, (B, N, S)))
+        taken = self._occ[:, self.spawn_f] != 0  # (B, S)
+        score = np.where(taken[:, None, :], -1.0, score)
+        choice = score.argmax(axis=2)
+        best = np.take_along_axis(score, choice[:, :, None], axis=2)[:, :, 0]
+        ok = waiting & (best >= 0)
+        clash = ((choice[:, :, None] == choice[:, None, :]) & ok[:, None, :]
+                 & (best[:, None, :] > best[:, :, None]))
+        ok &= ~clash.any(axis=2)
+        self.cell = np.where(ok, self.spawn_f[choice], self.cell)
+        self.out &= ~ok
+        self._place_agents()
+
+    def _grow(self) -> None:
+        """Resources (and waste) appear; each game implements its rule."""
+        raise NotImplementedError
+
+    def _free_orchard(self) -> np.ndarray:
+        """(B, H, W) orchard cells with no resource and no agent on them."""
+        P, H, W = self.P, self.H, self.W
+        occ = self._occ.reshape(self.num_envs, self.Hp, self.Wp)[:, P:P + H, P:P + W]
+        return self.orchard & ~self.resource[:, P:P + H, P:P + W] & (occ == 0)
+
+    def _draw(self, stream: int, cand: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Copy, padded row, padded column and a uniform draw for every True cell of ``cand`` (B, H, W)."""
+        b, y, x = np.nonzero(cand)
+        return b, y + self.P, x + self.P, self._uniform(stream, b, y * self.W + x)
+
+    # ------------------------------------------------------------------ observation
+    def _pack(self) -> np.ndarray:
+        """Refresh the packed map (one bit per map channel) of every copy and return it."""
+        bits = self._bits
+        np.left_shift(self.resource, _BIT["resource"], out=bits, dtype=np.uint8)
+        bits |= self._static_bits
+        if self.has_clean_beam:
+            bits |= self.waste.view(np.uint8) << _BIT["waste"]
+        b, n = np.nonzero(~self.out)
+        bits.reshape(self.num_envs, -1)[b, self.cell[b, n]] |= np.uint8(1 << _BIT["agents"])
+        return bits
+
+    def _observe(self) -> np.ndarray:
+        bits = self._pack()
+        B, N = self.cell.shape
+        P, bi = self.P, self._bi
+        y, x = np.divmod(self.cell, self.Wp)
+        if self.params["full_view"]:
+            win = np.broadcast_to(bits[:, None, P:P + self.H, P:P + self.W], (B, N, self.H, self.W))
+            cy, cx = y - P, x - P
+        else:
+            r = self.params["view_radius"]
+            win = self._windows[bi, y - r, x - r]
+            cy = cx = np.full((B, N), r)
+        obs = (win[:, :, None] >> _SHIFTS) & np.uint8(1)
+        ab, an = np.nonzero(~self.out)
+        acy, acx = cy[ab, an], cx[ab, an]
+        obs[ab, an, _CH["agents"], acy, acx] = 0
+        obs[ab, an, _CH["self"], acy, acx] = 1
+        f = self.facing[ab, an]
+        obs[ab, an, _CH["ahead"], acy + _DIRS[f, 0], acx + _DIRS[f, 1]] = 1
+        fb, fn = np.nonzero(self.out)
+        obs[fb, fn, _CH["frozen"]] = 1
+        return obs
+
+    def state(self) -> np.ndarray:
+        """(B, C, H, W) uint8: the whole map in the observation channels (see the module docstring)."""
+        P, H, W = self.P, self.H, self.W
+        out = (self._pack()[:, None, P:P + H, P:P + W] >> _SHIFTS) & np.uint8(1)
+        y, x = np.divmod(self.cell, self.Wp)
+        ab, an = np.nonzero(~self.out)
+        f = self.facing[ab, an]
+        ay, ax = y[ab, an] + _DIRS[f, 0] - P, x[ab, an] + _DIRS[f, 1] - P
+        inside = (ay >= 0) & (ay < H) & (ax >= 0) & (ax < W)
+        out[ab[inside], _CH["ahead"], ay[inside], ax[inside]] = 1
+        fb, fn = np.nonzero(self.out)
+        out[fb, _CH["frozen"], y[fb, fn] - P, x[fb, fn] - P] = 1
+        return out
+
+    # ------------------------------------------------------------------ rendering
+    def render_rgb(self, index: int = 0) -> np.ndarray:
+        from envs.render import grid_frame
+
+        return grid_frame(self, index)
+
+    def render_ansi(self, index: int = 0) -> str:
+        from envs.render import grid_text
+
+        return grid_text(self, index)
+
+    def agent_positions(self, index: int = 0) -> np.ndarray:
+        """(N, 2) row/column of each agent in copy ``index`` (frozen agents: where they left the map)."""
+        y, x = np.divmod(self.cell[index], self.Wp)
+        return np.stack([y - self.P, x - self.P], axis=1)
+
+    def interior(self, layer: np.ndarray) -> np.ndarray:
+        """The (B, H, W) unpadded part of a padded (B, Hp, Wp) layer."""
+        P = self.P
+        return layer[:, P:P + self.H, P:P + self.W]

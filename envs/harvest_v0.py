@@ -1,0 +1,140 @@
+"""harvest_v0 — a commons that regrows only where it is not stripped bare.
+
+=====================  ===================================================================
+Agents                 ``num_agents`` (default 5), ids ``agent_0`` ...
+Observation            ``Box(0, 1, (9, 2r+1, 2r+1), uint8)``, r = ``view_radius`` (default 7)
+Actions                ``Discrete(6)``: stay, up, down, left, right, tag (``Discrete(5)`` untagged)
+State                  ``Box(0, 1, (9, H, W), uint8)``
+=====================  ===================================================================
+
+**Description.** Agents roam a map with patches of orchard cells. A resource taken leaves its cell empty; an
+empty cell regrows a resource with a probability that depends on how many resources stand within
+``regrow_radius`` of it. A patch stripped bare never grows back, so a team that takes everything at once
+ends up with nothing: the tragedy of the commons (after Perolat et al. 2017, "A multi-agent reinforcement
+learning model of common-pool resource appropriation"). Agents can tag each other out of the game for a while.
+
+**Actions.** ``0`` stay, ``1`` up, ``2`` down, ``3`` left, ``4`` right (absolute moves; an agent faces the
+way it last moved), ``5`` tag (a beam ``tag_length`` cells ahead and ``tag_width`` lanes wide; absent when
+``tagging`` is false).
+
+**Observation.** An egocentric window of uint8 0/1 channels, channels first, in the order of
+``envs.grid.CHANNELS``: wall, resource, waste (always 0 here), river (always 0), orchard, agents, self, ahead,
+frozen (see ``envs.grid`` for each). Cells outside the map read as walls. With ``full_view`` the observation
+is the whole ``(9, H, W)`` map instead. ``state()`` is the whole map in the same channels.
+
+**Rewards.** +1 per resource taken; ``-tag_cost`` per tag beam fired; ``-tagged_penalty`` when tagged.
+
+**Regrowth.** Each step, an empty orchard cell with no agent on it regrows with probability
+``regrow_table[min(n, len(regrow_table) - 1)]``, where n is the number of resources within Euclidean
+distance ``regrow_radius`` (the cell itself excluded). The defaults follow Perolat et al. 2017 (from memory:
+0 with no resource near, 0.01 with 1–2, 0.05 with 3–4, 0.1 with 5 or more, radius 2).
+
+**Starting state.** Resources on every ``+`` cell of the layout; agents at distinct random spawn points,
+facing a random way.
+
+**Episode end.** Truncation after ``max_cycles`` steps, for every agent at once. There is no termination.
+
+**Infos** (per agent, per step): ``resources_taken``, ``tags_fired``, ``times_tagged`` (beams that hit it),
+``frozen`` (1 if it sat out this step).
+
+**Arguments**
+
+=================  =====  ===================  =====================================================
+name               type   default              meaning
+=================  =====  ===================  =====================================================
+layout             str    ``harvest_small``    bundled layout name or path of a layout file
+num_agents         int    5                    1 up to the layout's spawn points (at most 10)
+max_cycles         int    1000                 steps per episode
+view_radius        int    7                    window radius r, 1 .. max(H, W)
+full_view          bool   False                observe the whole map instead of a window
+tagging            bool   True                 agents have a tag action
+tag_length         int    5                    tag beam reach in cells
+tag_width          int    1                    tag beam lanes (odd)
+tag_cost           float  0.0                  paid by the tagger per beam
+tagged_penalty     float  0.0                  paid by the tagged agent
+freeze_steps       int    25                   steps a tagged agent sits out
+regrow_radius      int    2                    radius of the neighbourhood counted for regrowth
+regrow_table       list   0,.01,.01,.05,.05,.1 regrowth probability by neighbour count (last: and more)
+=================  =====  ===================  =====================================================
+
+**Version history.** v0: first release.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+from pettingzoo.utils.conversions import parallel_to_aec
+
+from envs.core import GameParallelEnv
+from envs.errors import LayoutError
+from envs.grid import _S_GROW, GridGame, grid_params
+from envs.layouts import Layout
+from envs.params import Param
+
+__all__ = ["NAME", "PARAMS", "HarvestGame", "HarvestParallelEnv", "parallel_env", "env", "vector_env"]
+
+NAME = "harvest_v0"
+
+PARAMS: list[Param] = grid_params("harvest_small", [
+    Param("regrow_radius", int, 2, "radius (Euclidean) of the neighbourhood counted for regrowth",
+          low=1, high=10),
+    Param("regrow_table", list, [0.0, 0.01, 0.01, 0.05, 0.05, 0.1],
+          "regrowth probability indexed by resources within the radius (the last entry: that many or more)",
+          low=0.0, high=1.0),
+])
+
+
+class HarvestGame(GridGame):
+    """The batched harvest engine (see the module docstring)."""
+
+    name: ClassVar[str] = NAME
+    PARAMS: ClassVar[list[Param]] = PARAMS
+
+    def __init__(self, num_envs: int = 1, **params: Any):
+        super().__init__(num_envs, **params)
+        R = self.params["regrow_radius"]
+        offs = [(dy, dx) for dy in range(-R, R + 1) for dx in range(-R, R + 1)
+                if 0 < dy * dy + dx * dx <= R * R]
+        self._near_f = np.array([dy * self.Wp + dx for dy, dx in offs], np.int64)
+        self._table = np.array(self.params["regrow_table"], np.float64)
+
+    def _check_layout(self, layout: Layout) -> None:
+        if not layout.orchard.any():
+            raise LayoutError(f"layout {layout.name}: harvest needs orchard cells ('+' or '-'); found none")
+
+    def _reach(self, params: dict[str, Any]) -> int:
+        return params["regrow_radius"]
+
+    def _grow(self) -> None:
+        b, y, x, u = self._draw(_S_GROW, self._free_orchard())
+        if b.size == 0:
+            return
+        res_f = self.resource.reshape(self.num_envs, -1)
+        cell = y * self.Wp + x
+        near = res_f[b[:, None], cell[:, None] + self._near_f].sum(axis=1)
+        grow = u < self._table[np.minimum(near, len(self._table) - 1)]
+        res_f[b[grow], cell[grow]] = True
+
+
+class HarvestParallelEnv(GameParallelEnv):
+    """PettingZoo ``ParallelEnv`` of harvest (one copy of :class:`HarvestGame`)."""
+
+    metadata: ClassVar[dict[str, Any]] = {"name": NAME, "render_modes": ["rgb_array", "ansi"], "render_fps": 8}
+    engine_class = HarvestGame
+
+
+def parallel_env(render_mode: str | None = None, **params: Any) -> HarvestParallelEnv:
+    """Harvest as a PettingZoo ``ParallelEnv``."""
+    return HarvestParallelEnv(render_mode=render_mode, **params)
+
+
+def env(render_mode: str | None = None, **params: Any):
+    """Harvest as a PettingZoo AEC env (``parallel_to_aec`` of :func:`parallel_env`)."""
+    return parallel_to_aec(parallel_env(render_mode=render_mode, **params))
+
+
+def vector_env(num_envs: int, **params: Any) -> HarvestGame:
+    """``num_envs`` copies of harvest stepped together (see ``envs.core``)."""
+    return HarvestGame(num_envs=num_envs, **params)

@@ -1,0 +1,74 @@
+"""The command line: the demo writes its GIFs and prints the metrics; mistakes are one line and exit 2."""
+
+import json
+from pathlib import Path
+
+import pytest
+
+import envs
+from marl_core.cli import main
+
+README = Path(__file__).resolve().parents[2] / "README.md"
+
+
+def test_demo_writes_gifs_and_prints_metrics(tmp_path, capsys):
+    assert main(["demo", "--out", str(tmp_path), "--steps", "60", "--agents", "3"]) == 0
+    out = capsys.readouterr().out
+    for word in ("efficiency", "equality", "sustainability", "peace", "greedy", "one_cleaner"):
+        assert word in out
+    gifs = sorted(p.name for p in tmp_path.glob("*.gif"))
+    assert gifs == ["cleanup_v0_nobody_cleans.gif", "cleanup_v0_one_cleaner.gif",
+                    "harvest_v0_greedy.gif", "harvest_v0_restrained.gif"]
+    from PIL import Image
+
+    with Image.open(tmp_path / gifs[0]) as im:
+        assert im.n_frames == 61  # reset frame + one per step
+
+
+@pytest.mark.parametrize("argv, field", [
+    (["demo", "--agents", "0", "--no-gif"], "num_agents"),
+    (["demo", "--agents", "7", "--no-gif"], "num_agents"),
+    (["demo", "--steps", "0", "--no-gif"], "max_cycles"),
+    (["demo", "--steps", "many"], "--steps"),
+    (["launch"], "launch"),
+])
+def test_user_mistakes_are_one_line_and_exit_2(argv, field, capsys, tmp_path):
+    assert main([*argv, "--out", str(tmp_path / "x")] if argv[0] == "demo" else argv) == 2
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and field in err
+    assert not (tmp_path / "x").exists()  # nothing half-written
+
+
+def test_envs_lists_every_game_and_parameter(capsys):
+    assert main(["envs", "--json"]) == 0
+    listed = json.loads(capsys.readouterr().out)
+    assert list(listed) == list(envs.GAMES)
+    assert [p["name"] for p in listed["harvest_v0"]] == [p.name for p in envs.harvest_v0.PARAMS]
+
+
+def _table_rows(text, header_start):
+    lines = text.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.startswith(header_start))
+    rows = {}
+    for line in lines[start + 2:]:
+        if not line.startswith("|"):
+            break
+        cells = [c.strip() for c in line.strip("|").split("|")]
+        rows[cells[0].strip("`")] = cells
+    return rows
+
+
+def _shown(value):
+    return ", ".join(f"{v:g}" for v in value) if isinstance(value, list) else f"`{value}`"
+
+
+def test_readme_documents_every_parameter_with_its_default():
+    text = README.read_text()
+    grid = _table_rows(text, "| parameter | type | harvest_v0 | cleanup_v0 |")
+    for column, game in ((2, "harvest_v0"), (3, "cleanup_v0")):
+        for p in envs.game_module(game).PARAMS:
+            assert p.name in grid, f"README has no row for {game}.{p.name}"
+            assert grid[p.name][column].strip("`") == _shown(p.default).strip("`"), (game, p.name)
+    matrix = _table_rows(text, "| `matrix_v0` parameter |")
+    for p in envs.matrix_v0.PARAMS:
+        assert p.name in matrix and matrix[p.name][2].strip("`") == str(p.default), p.name
