@@ -34,7 +34,8 @@ Step order, for every copy at once:
    A tag beam freezes every agent it hits: that agent leaves the map and sits out the next
    ``freeze_steps`` steps; the tagger pays ``tag_cost`` per beam fired, the victim ``tagged_penalty`` once.
    The clean beam (cleanup) removes the waste it covers.
-5. Frozen agents whose time is up return at a random free spawn point (if none is free, they wait).
+5. Frozen agents whose time is up return at distinct random free spawn points (if too few are free,
+   the ones left over wait a step).
 6. The game grows resources / waste (see each game).
 7. After ``max_cycles`` steps every agent is truncated (there is no termination).
 
@@ -337,24 +338,22 @@ class GridGame(BatchedGame):
         self._occ[b, self.cell[b, n]] = n + 1
 
     def _respawn(self, waiting: np.ndarray) -> None:
-        """Put ``waiting`` agents back at random free spawn points; clashes and full maps wait a step."""
+        """Put ``waiting`` agents back at distinct random free spawn points; if too few are free, the agents
+        left over wait a step. The waiting agents are put in a random order and the free spawn points in
+        another; the k-th agent takes the k-th point."""
         if not waiting.any():
             return
         B, N = waiting.shape
         S = len(self.spawn_f)
         bi = self._bi
-        idx = np.arange(N)[:, None] * S + np.arange(S)[None, :]  # (N, S)
-        score = self._uniform(_S_RESPAWN, np.broadcast_to(bi[:, :, None], (B, N, S)),
-                              np.broadcast_to(idx, (B, N, S)))
+        u_agent = self._uniform(_S_RESPAWN, np.broadcast_to(bi, (B, N)), np.broadcast_to(np.arange(N), (B, N)))
+        u_spawn = self._uniform(_S_RESPAWN, np.broadcast_to(bi, (B, S)), np.broadcast_to(N + np.arange(S), (B, S)))
         taken = self._occ[:, self.spawn_f] != 0  # (B, S)
-        score = np.where(taken[:, None, :], -1.0, score)
-        choice = score.argmax(axis=2)
-        best = np.take_along_axis(score, choice[:, :, None], axis=2)[:, :, 0]
-        ok = waiting & (best >= 0)
-        clash = ((choice[:, :, None] == choice[:, None, :]) & ok[:, None, :]
-                 & (best[:, None, :] > best[:, :, None]))
-        ok &= ~clash.any(axis=2)
-        self.cell = np.where(ok, self.spawn_f[choice], self.cell)
+        rank = np.argsort(np.argsort(np.where(waiting, u_agent, 2.0), axis=1), axis=1)  # waiting agents first
+        free_first = np.argsort(np.where(taken, 2.0, u_spawn), axis=1)
+        ok = waiting & (rank < (~taken).sum(axis=1, keepdims=True))
+        chosen = np.take_along_axis(free_first, np.minimum(rank, S - 1), axis=1)
+        self.cell = np.where(ok, self.spawn_f[chosen], self.cell)
         self.out &= ~ok
         self._place_agents()
 
@@ -403,7 +402,11 @@ class GridGame(BatchedGame):
         obs[ab, an, _CH["agents"], acy, acx] = 0
         obs[ab, an, _CH["self"], acy, acx] = 1
         f = self.facing[ab, an]
-        obs[ab, an, _CH["ahead"], acy + _DIRS[f, 0], acx + _DIRS[f, 1]] = 1
+        ay, ax = acy + _DIRS[f, 0], acx + _DIRS[f, 1]
+        if self.params["full_view"]:  # a window always holds the cell ahead; the bare map may not
+            inside = (ay >= 0) & (ay < self.H) & (ax >= 0) & (ax < self.W)
+            ab, an, ay, ax = ab[inside], an[inside], ay[inside], ax[inside]
+        obs[ab, an, _CH["ahead"], ay, ax] = 1
         fb, fn = np.nonzero(self.out)
         obs[fb, fn, _CH["frozen"]] = 1
         return obs

@@ -103,6 +103,10 @@ class HarvestGame(GridGame):
     def _check_layout(self, layout: Layout) -> None:
         if not layout.orchard.any():
             raise LayoutError(f"layout {layout.name}: harvest needs orchard cells ('+' or '-'); found none")
+        if layout.river.any():
+            y, x = np.argwhere(layout.river)[0]
+            raise LayoutError(f"layout {layout.name}: harvest has no river, but the layout has river cells "
+                              f"('~' or 'w'), the first at row {y + 1}, column {x + 1}; use '.' instead")
 
     def _reach(self, params: dict[str, Any]) -> int:
         return params["regrow_radius"]

@@ -1,0 +1,256 @@
+"""Monte-Carlo checks that resources and waste appear as often as the configured tables say.
+
+Each test builds a layout in which the quantity the rule depends on is known and cannot change during the
+measured step (agents stand still, far away), runs many copies of ``vector_env`` for one step from reset,
+and counts events. Copies are independent (each draws its own key at reset, envs/grid.py docstring), so the
+count is binomial; it must fall inside the exact (Clopper-Pearson) interval from ``scipy.stats.binomtest``
+at confidence 1 - 1e-6, with fixed seeds. Probabilities that the rule makes exactly 0 or 1 are checked
+exactly.
+"""
+
+from __future__ import annotations
+
+import textwrap
+
+import numpy as np
+import pytest
+from scipy.stats import binomtest
+
+import envs.cleanup_v0 as cleanup
+import envs.harvest_v0 as harvest
+
+CONFIDENCE = 1 - 1e-6
+
+
+def write_layout(tmp_path, rows: list[str] | str, name: str = "layout.txt") -> str:
+    text = "\n".join(rows) if isinstance(rows, list) else textwrap.dedent(rows).strip("\n")
+    path = tmp_path / name
+    path.write_text(text + "\n")
+    return str(path)
+
+
+def boxed(rows: list[str]) -> list[str]:
+    """Surround ``rows`` (equal length) with walls."""
+    width = len(rows[0]) + 2
+    return ["#" * width, *[f"#{r}#" for r in rows], "#" * width]
+
+
+def assert_rate(successes: int, trials: int, p: float) -> None:
+    """``successes`` out of ``trials`` is consistent with probability ``p`` (exact when p is 0 or 1)."""
+    if p == 0.0:
+        assert successes == 0, (successes, trials)
+        return
+    if p == 1.0:
+        assert successes == trials, (successes, trials)
+        return
+    ci = binomtest(successes, trials, p).proportion_ci(confidence_level=CONFIDENCE, method="exact")
+    assert ci.low <= p <= ci.high, (successes, trials, p, (ci.low, ci.high))
+
+
+def stay(game):
+    return game.step(np.zeros((game.num_envs, game.num_agents), np.int64))
+
+
+# --- harvest regrowth -------------------------------------------------------------------------------------
+
+UP, LEFT, RIGHT, DOWN = (0, 1), (1, 0), (1, 2), (2, 1)  # (row, column) of a neighbour in a 3 x 3 block
+
+
+def regrowth_layout(counts: list[int]) -> tuple[list[str], list[tuple[int, int, int]]]:
+    """One 3 x 3 block per entry of ``counts``: an empty orchard cell in the centre with that many resources
+    among its four orthogonal neighbours; blocks are two columns apart, so with ``regrow_radius`` 1 no
+    resource of one block is near the centre of another. Returns the rows and (row, column, count) of every
+    centre."""
+    blocks = []
+    for k in counts:
+        b = [["."] * 3 for _ in range(3)]
+        b[1][1] = "-"
+        for y, x in (UP, LEFT, RIGHT, DOWN)[:k]:
+            b[y][x] = "+"
+        blocks.append(b)
+    body = [".".join("".join(b[r]) for b in blocks) for r in range(3)]
+    width = len(body[0])
+    rows = boxed(["s" + "." * (width - 1), *body, "." * (width - 1) + "s"])
+    centres = [(3, 2 + 4 * j, k) for j, k in enumerate(counts)]  # +1 wall row, +1 spawn row; +1 wall col
+    return rows, centres
+
+
+# harvest_v0 docstring (regrowth): p = regrow_table[min(n, len - 1)]; a sharp custom table
+TABLE = [0.0, 0.3, 0.6, 0.9]
+
+
+def test_regrowth_follows_the_table(tmp_path):
+    counts = [0, 1, 2, 3, 4] * 3
+    rows, centres = regrowth_layout(counts)
+    copies = 3000
+    game = harvest.vector_env(copies, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
+                              regrow_radius=1, regrow_table=TABLE)
+    game.reset(seed=123)
+    for y, x, k in centres:
+        assert game.layout.orchard[y, x] and not game.layout.resource[y, x]
+        assert int(game.layout.resource[y - 1:y + 2, x - 1:x + 2].sum()) == k  # the layout is what we think
+    stay(game)
+    res = game.interior(game.resource)
+    for k in range(5):
+        grown = sum(int(res[:, y, x].sum()) for y, x, kk in centres if kk == k)
+        trials = copies * counts.count(k)
+        # harvest_v0 docstring (regrowth): regrow_table[min(n, len(regrow_table) - 1)] -- n = 4 uses the
+        # last entry ("that many or more"); expected values are the custom TABLE above
+        assert_rate(grown, trials, TABLE[min(k, len(TABLE) - 1)])
+    # the resources that stood there are untouched (nobody moved)
+    assert np.array_equal(res & game.layout.resource, np.broadcast_to(game.layout.resource, res.shape))
+
+
+@pytest.mark.parametrize(("radius", "offset", "counted"), [
+    (2, (1, 0), True),    # distance 1
+    (2, (1, 1), True),    # distance sqrt 2
+    (2, (0, 2), True),    # distance 2: on the radius
+    (2, (2, 1), False),   # distance sqrt 5
+    (2, (2, 2), False),   # distance sqrt 8: inside the square, outside the disc
+    (3, (2, 2), True),    # sqrt 8 <= 3 (a Manhattan radius of 3 would miss it)
+    (3, (1, 3), False),   # sqrt 10 > 3 (a square neighbourhood would count it)
+    (3, (3, 0), True),    # distance 3: on the radius
+], ids=["r2-1", "r2-sqrt2", "r2-2", "r2-sqrt5", "r2-sqrt8", "r3-sqrt8", "r3-sqrt10", "r3-3"])
+def test_regrowth_neighbourhood_is_a_euclidean_disc(tmp_path, radius, offset, counted):
+    size = 2 * radius + 3
+    grid = [["."] * size for _ in range(size)]
+    cy = cx = size // 2
+    grid[cy][cx] = "-"
+    grid[cy + offset[0]][cx + offset[1]] = "+"
+    grid[0][0] = "s"
+    rows = boxed(["".join(r) for r in grid])
+    game = harvest.vector_env(20, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
+                              regrow_radius=radius, regrow_table=[0.0, 1.0])
+    game.reset(seed=0)
+    stay(game)
+    grown = int(game.interior(game.resource)[:, cy + 1, cx + 1].sum())
+    # harvest_v0 docstring (regrowth): n counts resources within Euclidean distance regrow_radius; with the
+    # table [0, 1] the centre grows surely when the one resource is counted and never otherwise
+    assert grown == (20 if counted else 0)
+
+
+def test_regrowth_skips_a_cell_under_an_agent(tmp_path):
+    rows = boxed(["s.....", ".-.-+.", "......"])
+    game = harvest.vector_env(10, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
+                              regrow_radius=1, regrow_table=[1.0])
+    game.reset(seed=0)
+    game.cell[:, 0] = (2 + game.P) * game.Wp + (2 + game.P)  # stand on the '-' at map (2, 2)
+    game._place_agents()
+    stay(game)
+    res = game.interior(game.resource)
+    # harvest_v0 docstring (regrowth): an empty orchard cell *with no agent on it* regrows; table [1.0]
+    assert not res[:, 2, 2].any()
+    assert res[:, 2, 4].all()
+
+
+# --- cleanup ----------------------------------------------------------------------------------------------
+
+def cleanup_layout(river: str, orchard_rows: int = 2) -> list[str]:
+    """A river row (``~`` / ``w`` characters), a walkway, then ``orchard_rows`` rows of empty orchard."""
+    n = len(river)
+    return boxed([river, "s" + "." * (n - 1), *(["-" * n] * orchard_rows)])
+
+
+@pytest.mark.parametrize("prob", [0.05, 0.3])
+def test_waste_spawns_per_clean_river_cell(tmp_path, prob):
+    river = "~~~~~ww~~~~~~www~~~~"
+    copies = 1500
+    game = cleanup.vector_env(copies, layout=write_layout(tmp_path, cleanup_layout(river)), num_agents=1,
+                              view_radius=1, waste_spawn_prob=prob)
+    game.reset(seed=7)
+    stay(game)
+    row = game.interior(game.waste)[:, 1, 1:1 + len(river)]  # (copies, cells of the river row)
+    clean = np.array([c == "~" for c in river])
+    assert row[:, ~clean].all()  # legend in envs/layouts.py: 'w' starts polluted; waste only goes by cleaning
+    # cleanup_v0 docstring (dynamics 1): every clean river cell becomes polluted with prob waste_spawn_prob
+    assert_rate(int(row[:, clean].sum()), copies * int(clean.sum()), prob)
+
+
+@pytest.mark.parametrize(("polluted", "expected"), [
+    (0, 0.8),   # w = 0.0, at or below restoration 0.2: the full rate spawn_prob_max
+    (2, 0.8),   # w = 0.2, at the restoration threshold: the full rate
+    (3, 0.6),   # w = 0.3: 0.8 * (0.6 - 0.3) / (0.6 - 0.2)
+    (5, 0.2),   # w = 0.5: 0.8 * (0.6 - 0.5) / (0.6 - 0.2)
+    (6, 0.0),   # w = 0.6, at the depletion threshold: nothing grows
+    (9, 0.0),   # w = 0.9, above it: nothing grows
+])
+def test_orchard_spawn_follows_the_linear_rule(tmp_path, polluted, expected):
+    river = "w" * polluted + "~" * (10 - polluted)  # river_cells = 10
+    copies = 1000
+    game = cleanup.vector_env(copies, layout=write_layout(tmp_path, cleanup_layout(river)), num_agents=1,
+                              view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=0.8,
+                              depletion_threshold=0.6, restoration_threshold=0.2)
+    game.reset(seed=11)
+    stay(game)
+    orchard = game.interior(game.resource)[:, 3:5, 1:11]  # the two orchard rows, all empty at the start
+    # cleanup_v0 docstring (dynamics 2): spawn_prob_max * clip((depletion - w) / (depletion - restoration),
+    # 0, 1); the expected values beside each case are that formula worked by hand
+    assert_rate(int(orchard.sum()), orchard.size, expected)
+
+
+def test_orchard_uses_the_fraction_after_this_steps_waste(tmp_path):
+    game = cleanup.vector_env(50, layout=write_layout(tmp_path, cleanup_layout("~" * 10)), num_agents=1,
+                              view_radius=1, waste_spawn_prob=1.0, spawn_prob_max=1.0,
+                              depletion_threshold=0.4, restoration_threshold=0.0)
+    game.reset(seed=0)
+    stay(game)
+    # cleanup_v0 docstring (dynamics, "in this order"): waste first (the whole river, prob 1), then the
+    # orchard sees w = 1 >= depletion and grows nothing, although the river was clean at the step's start
+    assert game.waste_fraction().tolist() == [1.0] * 50
+    assert not game.interior(game.resource).any()
+
+
+def test_orchard_skips_a_cell_under_an_agent(tmp_path):
+    game = cleanup.vector_env(10, layout=write_layout(tmp_path, cleanup_layout("~" * 6)), num_agents=1,
+                              view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=1.0)
+    game.reset(seed=0)
+    game.cell[:, 0] = (3 + game.P) * game.Wp + (2 + game.P)  # stand on the orchard cell at map (3, 2)
+    game._place_agents()
+    stay(game)
+    res = game.interior(game.resource)[:, 3:5, 1:7]
+    # cleanup_v0 docstring (dynamics 2): every empty orchard cell *with no agent on it*; rate 1 here
+    assert not res[:, 0, 1].any()
+    assert res.sum() == 10 * (12 - 1)
+
+
+def test_polluted_river_stops_the_orchard(tmp_path):
+    # 5 of 10 river cells polluted: w = 0.5 > depletion 0.4, and waste only grows while nobody cleans
+    rows = cleanup_layout("wwwww~~~~~")
+    game = cleanup.vector_env(20, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
+                              waste_spawn_prob=0.01, spawn_prob_max=0.5, depletion_threshold=0.4,
+                              restoration_threshold=0.0)
+    game.reset(seed=3)
+    for _ in range(300):
+        stay(game)
+        # cleanup_v0 docstring (dynamics 2): zero growth above the depletion threshold
+        assert not game.interior(game.resource).any()
+    assert np.all(game.waste_fraction() >= 0.5)
+    # the same map with a clean river and no waste does grow (the check above is not vacuous)
+    clean = cleanup.vector_env(20, layout=write_layout(tmp_path, cleanup_layout("~" * 10), "clean.txt"),
+                               num_agents=1, view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=0.5,
+                               depletion_threshold=0.4, restoration_threshold=0.0)
+    clean.reset(seed=3)
+    stay(clean)
+    assert clean.interior(clean.resource).any()
+
+
+# --- defaults ---------------------------------------------------------------------------------------------
+
+def test_harvest_defaults_follow_the_references():
+    p = harvest.vector_env(1).params
+    # REFERENCES.md, commons regrowth (Perolat et al. 2017, from memory): 0 with no resource within
+    # radius 2, 0.01 with 1-2, 0.05 with 3-4, 0.1 with 5 or more
+    assert p["regrow_radius"] == 2
+    assert p["regrow_table"] == [0.0, 0.01, 0.01, 0.05, 0.05, 0.1]
+    # REFERENCES.md (Perolat et al. 2017, from memory): a tagged agent is removed for 25 steps; 1000 steps
+    assert p["freeze_steps"] == 25
+    assert p["max_cycles"] == 1000
+
+
+def test_cleanup_threshold_defaults_follow_the_references():
+    p = cleanup.vector_env(1).params
+    # REFERENCES.md, public-goods river (Hughes et al. 2018, from memory, low confidence): maximum apple
+    # spawn 0.05, depletion threshold 0.4, restoration threshold 0.0
+    assert p["spawn_prob_max"] == 0.05
+    assert p["depletion_threshold"] == 0.4
+    assert p["restoration_threshold"] == 0.0
