@@ -1,10 +1,14 @@
 """The ``marl-core`` command line. The only module that reads argv or prints for people.
 
 Commands:
-    marl-core demo [--out DIR] [--seed N] [--agents N] [--steps N] [--no-gif]
+    marl-core train CONFIG --out RUN_DIR [--set key.path=value ...] [--quiet]
+    marl-core train --resume RUN_DIR [--quiet]
+    marl-core evaluate RUN_DIR [--episodes N] [--json] [--gif PATH]
     marl-core envs [--json]
+    marl-core demo [--out DIR] [--seed N] [--agents N] [--steps N] [--no-gif]
 
-A user mistake (a bad option, a bad game parameter) prints one line on stderr and exits with status 2.
+A user mistake (a bad option, config key, game parameter, run directory or checkpoint) prints one line on
+stderr and exits with status 2, and nothing is written into an existing run directory.
 """
 
 from __future__ import annotations
@@ -15,6 +19,7 @@ import sys
 from collections.abc import Sequence
 
 from envs.errors import EnvError
+from marl_core.errors import MarlError
 
 __all__ = ["main"]
 
@@ -37,6 +42,18 @@ def _parser() -> argparse.ArgumentParser:
     d.add_argument("--agents", type=int, default=5, help="agents per team (default: 5)")
     d.add_argument("--steps", type=int, default=1000, help="episode length, max_cycles (default: 1000)")
     d.add_argument("--no-gif", action="store_true", help="skip the GIFs")
+    t = sub.add_parser("train", help="train a team from a YAML config into a run directory")
+    t.add_argument("config", nargs="?", help="YAML config (see configs/)")
+    t.add_argument("--out", help="new run directory")
+    t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a config key, e.g. --set learner.lr=1e-3 (repeatable)")
+    t.add_argument("--resume", metavar="RUN_DIR", help="continue a run from its last checkpoint")
+    t.add_argument("--quiet", action="store_true", help="no progress bar; one plain line per evaluation")
+    v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off")
+    v.add_argument("run_dir")
+    v.add_argument("--episodes", type=int, help="episodes to play (default: the run's train.eval_episodes)")
+    v.add_argument("--json", action="store_true", help="print JSON (same metric keys as summary.json)")
+    v.add_argument("--gif", metavar="PATH", help="write a GIF of the first episode")
     e = sub.add_parser("envs", help="list the games and their parameters")
     e.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return p
@@ -79,11 +96,107 @@ def _envs(args: argparse.Namespace) -> int:
     return 0
 
 
+def _fmt(x) -> str:
+    return "n/a" if x is None else f"{x:.3f}"
+
+
+def _table(summary: dict) -> str:
+    rand = summary.get("random") or {}
+    lines = [f"{'':<16}{'learned':>10}{'random':>10}"]
+    for key in ("return_mean", "efficiency", "equality", "sustainability", "peace"):
+        lines.append(f"{key:<16}{_fmt(summary.get(key)):>10}{_fmt(rand.get(key)):>10}")
+    return "\n".join(lines)
+
+
+class _Progress:
+    """A rich progress bar (steps, steps/s, ETA, latest evaluation return) or plain lines when quiet."""
+
+    def __init__(self, quiet: bool):
+        self.quiet, self.bar, self.task, self.last = quiet, None, None, None
+
+    def __enter__(self):
+        if not self.quiet:
+            from rich.progress import (
+                BarColumn,
+                MofNCompleteColumn,
+                Progress,
+                TextColumn,
+                TimeRemainingColumn,
+            )
+
+            self.bar = Progress(TextColumn("[bold]train"), BarColumn(), MofNCompleteColumn(),
+                                TextColumn("{task.fields[rate]} steps/s"), TimeRemainingColumn(),
+                                TextColumn("eval return {task.fields[ret]}"))
+            self.bar.__enter__()
+        self.t0 = __import__("time").perf_counter()
+        self.s0 = None
+        return self
+
+    def __call__(self, step: int, total: int, last: dict | None) -> None:
+        import time
+
+        if self.s0 is None:
+            self.s0, self.t0 = step, time.perf_counter()
+        rate = (step - self.s0) / max(time.perf_counter() - self.t0, 1e-9)
+        ret = _fmt(last["return_mean"]) if last else "-"
+        if self.bar is not None:
+            if self.task is None:
+                self.task = self.bar.add_task("train", total=total, rate="-", ret="-")
+            self.bar.update(self.task, completed=step, rate=f"{rate:,.0f}", ret=ret)
+        elif last is not None and last is not self.last:
+            print(f"step {step}/{total}  {rate:,.0f} steps/s  eval return {ret}  "
+                  f"efficiency {_fmt(last['efficiency'])}", flush=True)
+        self.last = last
+
+    def __exit__(self, *exc):
+        if self.bar is not None:
+            self.bar.__exit__(*exc)
+
+
+def _train(args: argparse.Namespace) -> int:
+    from marl_core import train
+
+    if args.resume:
+        if args.config or args.out or args.set:
+            raise UsageError("train --resume RUN_DIR takes no CONFIG, --out or --set (the run keeps its config)")
+        out = args.resume
+        with _Progress(args.quiet) as bar:
+            summary = train.resume(out, progress=bar)
+    else:
+        if not args.config or not args.out:
+            raise UsageError("train needs CONFIG and --out RUN_DIR (or --resume RUN_DIR)")
+        from marl_core.config import load_config
+
+        cfg = load_config(args.config, args.set)
+        out = args.out
+        with _Progress(args.quiet) as bar:
+            summary = train.run(cfg, out, progress=bar)
+    print(f"run: {out}  ({summary['env_steps']} env steps, {summary['episodes']} episodes)")
+    print(_table(summary))
+    print(f"summary: {out}/summary.json   policies: {out}/policies/")
+    print(f"TensorBoard: tensorboard --logdir {out}")
+    return 0
+
+
+def _evaluate(args: argparse.Namespace) -> int:
+    from marl_core import train
+
+    res = train.evaluate_run(args.run_dir, episodes=args.episodes, gif=args.gif)
+    if args.json:
+        print(json.dumps(train._finite(res), indent=2, sort_keys=True))
+    else:
+        print(f"run: {args.run_dir}  ({res['eval_episodes']} episodes, exploration off)")
+        print(_table(res))
+        if args.gif:
+            print(f"GIF: {args.gif}")
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     try:
         args = _parser().parse_args(argv)
-        return {"demo": _demo, "envs": _envs}[args.command](args)
-    except (UsageError, EnvError) as err:
+        return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate}[args.command](args)
+    except (UsageError, EnvError, MarlError) as err:
         print(f"marl-core: error: {err}", file=sys.stderr)
         return 2
 

@@ -1,0 +1,801 @@
+"""The run config: one YAML file with the sections ``env``, ``learner``, ``train`` and ``log``.
+
+One pydantic schema (:class:`RunConfig`) defines every key with its type, default, bounds and one-line
+meaning; :func:`schema_table` lists them for the docs and for the ablation harness, which validates its
+dotted key paths against :func:`valid_keys`. Every key may be left out; a missing key takes its default
+and the resolved config (:func:`config_to_dict`, :func:`dump_config`) writes every value out, game
+parameters included, so a run directory records exactly what ran.
+
+Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
+
+    env:
+      name: harvest_v0          # a game in envs.GAMES, 'module:callable' or 'gymnasium:ID'
+      params:                   # keyword arguments of the env; checked against the game's table
+        num_agents: 5
+        regrow_table: [0.0, 0.01, 0.01, 0.05, 0.05, 0.1]
+      num_envs: 8
+    learner:
+      kind: idqn                # idqn | maddpg; each kind has its own keys and defaults
+      share_parameters: false
+      gamma: 0.99
+      lr: 5.0e-4
+      batch_size: 64
+      buffer_size: 100000
+      learning_starts: 2000
+      train_every: 1
+      updates_per_round: 1
+      grad_clip: 10.0
+      hidden: 128
+      conv_channels: [16, 32]
+      torch_threads: 1
+      double: true
+      dueling: false
+      n_step: 1
+      prioritized: false
+      priority_alpha: 0.6
+      priority_beta0: 0.4
+      priority_eps: 1.0e-6
+      target_update_every: 500
+      eps_start: 1.0
+      eps_end: 0.05
+      eps_decay_steps: 50000
+      eval_eps: 0.0
+    train:
+      total_steps: 100000
+      seed: 0
+      eval_every: 10000
+      eval_episodes: 4
+      checkpoint_every: 20000
+      random_episodes: 4
+    log:
+      tensorboard: true
+      gif_every: 5
+      progress: true
+      log_every: 1000
+
+With ``kind: maddpg`` the idqn-only keys (``double`` ... ``eval_eps``) give way to ``critic``,
+``critic_input``, ``actor_lr``, ``tau``, ``gumbel_temperature``, ``actor_reg`` and
+``explore_eps_start`` / ``explore_eps_end`` / ``explore_eps_decay_steps``; ``gamma``, ``lr`` and
+``batch_size`` then default to 0.95, 1e-3 and 256. An empty file, or an empty section, means all defaults.
+Numbers written ``1e-3`` are read as numbers (YAML 1.1 would read them as text), and a key written twice
+in one mapping is an error.
+
+Overrides: ``load_config(path, ["learner.lr=1e-3", "env.params.num_agents=3"])`` (the command line's
+``--set``) sets one dotted key each, in order, before validation. The value is parsed as YAML, so
+``learner.double=false``, ``env.params.regrow_table=[0,0.1]`` and ``learner.grad_clip=null`` work. A key
+path that is not in the schema is an error; under ``env.params`` any name may be set (a game checks it).
+
+Errors: every problem raises :class:`marl_core.errors.ConfigError` with one line naming the dotted key,
+the value and what is allowed::
+
+    learner.lr = -1.0 is not allowed: expected a number > 0
+    unknown key 'learner.gama'; did you mean 'learner.gamma'?
+    learner.tau is a maddpg key; learner.kind is 'idqn'
+    env.params.num_agents = 0 is not allowed: expected an integer in [1, 10]
+"""
+
+from __future__ import annotations
+
+import copy
+import hashlib
+import json
+import keyword
+import os
+import re
+import tempfile
+import types
+import typing
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import yaml
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
+from pydantic_core import PydanticCustomError
+
+import envs
+from envs.errors import ParamError
+from envs.params import nearest, resolve
+from marl_core.errors import ConfigError
+
+__all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "TrainConfig", "LogConfig",
+           "load_config", "parse_config", "apply_overrides", "config_to_dict", "dump_config",
+           "schema_table", "valid_keys", "config_hash"]
+
+
+# ---------------------------------------------------------------------------------------------- types
+
+def _integral(value: Any) -> Any:
+    """Let ``1e5`` or ``3.0`` stand for an integer; anything else goes on to strict validation."""
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
+
+
+_Int = Annotated[int, BeforeValidator(_integral)]
+_PositiveInt = Annotated[int, BeforeValidator(_integral), Field(ge=1)]
+
+_STRICT = ConfigDict(extra="forbid", strict=True, allow_inf_nan=False)
+
+# The one error type raised by our own validators: its context carries the finished one-line message.
+_OWN_ERROR = "marl_config"
+
+
+def _own_error(line: str) -> PydanticCustomError:
+    return PydanticCustomError(_OWN_ERROR, "{line}", {"line": line})
+
+
+def _show(value: Any) -> str:
+    """A value as it appears in a message: its repr, on one line and cut to a readable length."""
+    text = repr(value).replace("\n", " ")
+    return text if len(text) <= 80 else text[:77] + "..."
+
+
+def _not_allowed(key: str, value: Any, allowed: str) -> str:
+    return f"{key} = {_show(value)} is not allowed: expected {allowed}"
+
+
+def _unknown(key: str, prefix: str, candidates: Iterable[str]) -> str:
+    """``unknown key 'a.b'; did you mean 'a.c'?`` (or the valid keys when none is close)."""
+    candidates = list(candidates)
+    name = key[len(prefix):] if prefix and key.startswith(prefix) else key
+    close = nearest(name, candidates)
+    if close:
+        return f"unknown key '{key}'; did you mean {' or '.join(repr(prefix + c) for c in close)}?"
+    where = f" in '{prefix[:-1]}'" if prefix else ""
+    return f"unknown key '{key}' (valid keys{where}: {', '.join(candidates)})"
+
+
+# -------------------------------------------------------------------------------------------- env
+
+_NAME_ALLOWED = (f"one of our games ({', '.join(envs.GAMES)}), 'module:callable' for a PettingZoo "
+                 "ParallelEnv factory, or 'gymnasium:ID' for a single-agent gymnasium env")
+_GYM_PREFIX = "gymnasium:"
+_GYM_ID = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-/]*")
+
+
+def _dotted_identifier(text: str) -> bool:
+    return bool(text) and all(p.isidentifier() and not keyword.iskeyword(p) for p in text.split("."))
+
+
+def _env_name_problem(name: str) -> str | None:
+    """``None`` for a well-formed env name, else what is wrong with it. Imports nothing."""
+    if name in envs.GAMES:
+        return None
+    if name.startswith(_GYM_PREFIX):
+        env_id = name[len(_GYM_PREFIX):]
+        if _GYM_ID.fullmatch(env_id):
+            return None
+        return "'gymnasium:' followed by a registered id such as CartPole-v1"
+    if ":" not in name:
+        close = nearest(name, envs.GAMES)
+        hint = f" (did you mean {' or '.join(repr(c) for c in close)}?)" if close else ""
+        return _NAME_ALLOWED + hint
+    module, _, factory = name.partition(":")
+    if ":" in factory or not _dotted_identifier(module) or not _dotted_identifier(factory):
+        return "'module:callable' with exactly one colon between dotted Python identifiers"
+    return None
+
+
+class EnvConfig(BaseModel):
+    """Which env to train on and how many copies to step together."""
+
+    model_config = _STRICT
+
+    name: str = Field("harvest_v0", description="env: a game in envs.GAMES, 'module:callable' (a PettingZoo "
+                      "ParallelEnv factory) or 'gymnasium:ID' (a single-agent gymnasium env)",
+                      json_schema_extra={"allowed": _NAME_ALLOWED})
+    params: dict[str, Any] = Field(default_factory=dict, description="keyword arguments of the env; for "
+                                   "our games checked against the game's parameter table, defaults filled in")
+    num_envs: _PositiveInt = Field(8, description="copies of the env stepped together (a batched game or a "
+                                  "vector of adapters)")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _empty_params(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "params" in data and data["params"] is None:
+            data = {**data, "params": {}}
+        return data
+
+    @field_validator("name", mode="before")
+    @classmethod
+    def _check_name(cls, value: Any) -> Any:
+        if not isinstance(value, str):
+            raise _own_error(_not_allowed("env.name", value, _NAME_ALLOWED))
+        problem = _env_name_problem(value)
+        if problem is not None:
+            raise _own_error(_not_allowed("env.name", value, problem))
+        return value
+
+    @model_validator(mode="after")
+    def _check_params(self) -> EnvConfig:
+        if self.name in envs.GAMES:
+            self.params = _resolve_game_params(self.name, self.params)
+        return self
+
+    @property
+    def is_game(self) -> bool:
+        """True when ``name`` is one of our games (as opposed to an adapted external env)."""
+        return self.name in envs.GAMES
+
+
+def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
+    """Check ``given`` against the game's table (dotted ``env.params.<name>`` errors); defaults filled in."""
+    table = envs.game_module(game).PARAMS
+    by_name = {p.name: p for p in table}
+    given = dict(given)
+    for key, value in list(given.items()):
+        param = by_name.get(key)
+        if param is None:
+            raise _own_error(_unknown(f"env.params.{key}", "env.params.", by_name))
+        if value is None and param.default is None:
+            del given[key]  # null for a parameter whose default is null: the resolved dump writes it so
+            continue
+        try:
+            param.validate(value, game)
+        except ParamError as err:
+            text = str(err)
+            allowed = text.split("; expected ", 1)[1] if "; expected " in text else param.allowed()
+            raise _own_error(_not_allowed(f"env.params.{key}", value, allowed)) from None
+    try:
+        return resolve(game, table, given)
+    except ParamError as err:  # pragma: no cover - every case is caught above; kept as a one-line net
+        raise _own_error(f"env.params: {err}") from None
+
+
+# ---------------------------------------------------------------------------------------- learners
+
+def _gamma(default: Any) -> Any:
+    return Field(default, ge=0.0, le=1.0, description="discount factor per env step")
+
+
+def _lr(default: Any, what: str) -> Any:
+    return Field(default, gt=0.0, description=f"Adam learning rate of the {what}")
+
+
+def _batch_size(default: Any) -> Any:
+    return Field(default, ge=1, description="transitions sampled from replay per update")
+
+
+class _LearnerBase(BaseModel):
+    """Keys every learner has. The three without a default here get one per kind."""
+
+    model_config = _STRICT
+
+    kind: Literal["idqn", "maddpg"] = Field(description="learning algorithm: independent DQN or a "
+                                            "MADDPG-style centralised critic")
+    share_parameters: bool = Field(False, description="one network for all agents with an agent-id one-hot "
+                                   "input (false: one network per agent)")
+    gamma: float = _gamma(...)
+    lr: float = _lr(..., "networks")
+    batch_size: _Int = _batch_size(...)
+    buffer_size: _PositiveInt = Field(100_000, description="joint env steps kept in replay (oldest dropped "
+                                     "first)")
+    learning_starts: _Int = Field(2000, ge=0, description="env steps collected before the first update")
+    train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds")
+    updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round")
+    grad_clip: float | None = Field(10.0, gt=0.0, description="largest global gradient norm per update "
+                                    "(null: no clipping)")
+    hidden: _PositiveInt = Field(128, description="width of the MLP layers")
+    conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
+                                             description="output channels of each conv layer of the "
+                                             "grid-window encoder")
+    torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process (one is fastest "
+                                       "for nets this small)")
+
+
+class IDQNConfig(_LearnerBase):
+    """Independent DQN: one Q-network per agent (or one shared), with its own replay and target network."""
+
+    kind: Literal["idqn"] = Field("idqn", description="learning algorithm: independent DQN")
+    # gamma 0.99: DQN, Mnih et al. 2015 (REFERENCES)
+    gamma: float = _gamma(0.99)
+    lr: float = _lr(5e-4, "Q-networks")
+    batch_size: _Int = _batch_size(64)
+    double: bool = Field(True, description="double DQN target: the online net picks the next action, the "
+                         "target net values it")
+    dueling: bool = Field(False, description="dueling head: Q = V + A - mean(A)")
+    n_step: _PositiveInt = Field(1, description="steps of reward summed in the return before bootstrapping")
+    prioritized: bool = Field(False, description="prioritized replay (proportional, with importance weights)")
+    # alpha 0.6, beta0 0.4: Schaul et al. 2016, proportional variant (REFERENCES, from memory)
+    priority_alpha: float = Field(0.6, ge=0.0, le=1.0, description="prioritized replay: exponent on "
+                                  "priorities (0 = uniform)")
+    priority_beta0: float = Field(0.4, ge=0.0, le=1.0, description="prioritized replay: initial "
+                                  "importance-weight exponent, annealed to 1 over training")
+    priority_eps: float = Field(1e-6, gt=0.0, description="prioritized replay: added to |TD error| so no "
+                                "priority is zero")
+    target_update_every: _PositiveInt = Field(500, description="updates between copies of the online net "
+                                             "into the target net")
+    eps_start: float = Field(1.0, ge=0.0, le=1.0, description="epsilon-greedy: exploration rate at the "
+                             "start")
+    eps_end: float = Field(0.05, ge=0.0, le=1.0, description="epsilon-greedy: exploration rate after the "
+                           "decay (at most eps_start)")
+    eps_decay_steps: _PositiveInt = Field(50_000, description="env steps of the linear decay from eps_start "
+                                         "to eps_end")
+    eval_eps: float = Field(0.0, ge=0.0, le=1.0, description="exploration rate at evaluation; 0 = greedy "
+                            "(DQN used 0.05 on Atari, Mnih et al. 2015)")
+
+    @model_validator(mode="after")
+    def _check_schedule(self) -> IDQNConfig:
+        if self.eps_end > self.eps_start:
+            raise _own_error(_not_allowed("learner.eps_end", self.eps_end,
+                                          f"a number <= learner.eps_start ({self.eps_start!r})"))
+        return self
+
+
+class MADDPGConfig(_LearnerBase):
+    """MADDPG-style centralised critic over decentralised actors (Lowe et al. 2017)."""
+
+    kind: Literal["maddpg"] = Field("maddpg", description="learning algorithm: MADDPG-style centralised "
+                                    "critic")
+    # gamma 0.95, tau 0.01: Lowe et al. 2017 (REFERENCES, from memory)
+    gamma: float = _gamma(0.95)
+    lr: float = _lr(1e-3, "critic")
+    batch_size: _Int = _batch_size(256)
+    critic: Literal["shared", "per_agent"] = Field("shared", description="one critic for the team "
+                                                   "(shared) or one per agent")
+    critic_input: Literal["auto", "state", "observations"] = Field("auto", description="what the critic "
+                                                                   "sees besides the actions; auto = the "
+                                                                   "env's state when it has one")
+    actor_lr: float = Field(1e-3, gt=0.0, description="Adam learning rate of the actors")
+    tau: float = Field(0.01, gt=0.0, le=1.0, description="Polyak step of the target networks per update")
+    gumbel_temperature: float = Field(1.0, gt=0.0, description="temperature of the straight-through "
+                                      "Gumbel-softmax")
+    actor_reg: float = Field(1e-3, ge=0.0, description="penalty on the actors' squared logits")
+    explore_eps_start: float = Field(0.3, ge=0.0, le=1.0, description="share of uniform random actions "
+                                     "mixed into actor sampling at the start")
+    explore_eps_end: float = Field(0.02, ge=0.0, le=1.0, description="share of uniform random actions after "
+                                   "the decay (at most explore_eps_start)")
+    explore_eps_decay_steps: _PositiveInt = Field(50_000, description="env steps of the linear decay from "
+                                                 "explore_eps_start to explore_eps_end")
+
+    @model_validator(mode="after")
+    def _check_schedule(self) -> MADDPGConfig:
+        if self.explore_eps_end > self.explore_eps_start:
+            raise _own_error(_not_allowed("learner.explore_eps_end", self.explore_eps_end,
+                                          f"a number <= learner.explore_eps_start "
+                                          f"({self.explore_eps_start!r})"))
+        return self
+
+
+LEARNERS: dict[str, type[_LearnerBase]] = {"idqn": IDQNConfig, "maddpg": MADDPGConfig}
+
+
+# ------------------------------------------------------------------------------------- train and log
+
+class TrainConfig(BaseModel):
+    """How long to train and how often to evaluate and checkpoint."""
+
+    model_config = _STRICT
+
+    total_steps: _PositiveInt = Field(100_000, description="env steps to train, summed over the copies")
+    seed: _Int = Field(0, ge=0, description="seed of the env copies, the networks and exploration")
+    eval_every: _PositiveInt = Field(10_000, description="env steps between evaluations")
+    eval_episodes: _PositiveInt = Field(4, description="episodes per evaluation")
+    checkpoint_every: _PositiveInt = Field(20_000, description="env steps between checkpoints")
+    random_episodes: _PositiveInt = Field(4, description="episodes of a uniformly random team measured at "
+                                          "the start, as a baseline")
+
+
+class LogConfig(BaseModel):
+    """What a run writes besides metrics.jsonl and summary.json."""
+
+    model_config = _STRICT
+
+    tensorboard: bool = Field(True, description="write TensorBoard event files")
+    gif_every: _Int = Field(5, ge=0, description="evaluations between GIFs of an episode (0 = never)")
+    progress: bool = Field(True, description="show a progress bar (false: quiet, plain log lines)")
+    log_every: _PositiveInt = Field(1000, description="env steps between logs of the training scalars")
+
+
+# ---------------------------------------------------------------------------------------------- run
+
+class RunConfig(BaseModel):
+    """A whole run: env, learner, training schedule and logging."""
+
+    model_config = _STRICT
+
+    env: EnvConfig = Field(default_factory=EnvConfig, description="the env")
+    learner: IDQNConfig | MADDPGConfig = Field(default_factory=IDQNConfig, discriminator="kind",
+                                               description="the learner; 'kind' picks its keys")
+    train: TrainConfig = Field(default_factory=TrainConfig, description="the training schedule")
+    log: LogConfig = Field(default_factory=LogConfig, description="what the run writes")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_sections(cls, data: Any) -> Any:
+        """An empty section (``train:`` with nothing under it) means defaults; ``learner.kind`` defaults to
+        idqn."""
+        if not isinstance(data, dict):
+            return data
+        data = {k: ({} if v is None and k in SECTIONS else v) for k, v in data.items()}
+        learner = data.get("learner")
+        if isinstance(learner, dict) and "kind" not in learner:
+            data["learner"] = {"kind": "idqn", **learner}
+        return data
+
+
+SECTIONS: dict[str, Any] = {"env": EnvConfig, "learner": LEARNERS, "train": TrainConfig, "log": LogConfig}
+
+
+# ----------------------------------------------------------------------------------- schema listing
+
+def _metadata_bounds(metadata: Iterable[Any]) -> str:
+    """``> 0``, ``>= 1``, ``in [0, 1]``, ``in (0, 1]`` or ``''`` from annotated-types constraints."""
+    low = high = None
+    low_open = high_open = False
+    for m in metadata:
+        if getattr(m, "gt", None) is not None:
+            low, low_open = m.gt, True
+        if getattr(m, "ge", None) is not None:
+            low, low_open = m.ge, False
+        if getattr(m, "lt", None) is not None:
+            high, high_open = m.lt, True
+        if getattr(m, "le", None) is not None:
+            high, high_open = m.le, False
+    if low is not None and high is not None:
+        return f"in {'(' if low_open else '['}{low:g}, {high:g}{')' if high_open else ']'}"
+    if low is not None:
+        return f"{'>' if low_open else '>='} {low:g}"
+    if high is not None:
+        return f"{'<' if high_open else '<='} {high:g}"
+    return ""
+
+
+def _unwrap(annotation: Any) -> tuple[Any, list[Any]]:
+    """Strip ``Annotated``; return the bare type and its constraint objects (FieldInfo flattened)."""
+    metadata: list[Any] = []
+    while typing.get_origin(annotation) is Annotated:
+        annotation, *extra = typing.get_args(annotation)
+        for m in extra:
+            metadata.extend(getattr(m, "metadata", None) or [m])
+    return annotation, metadata
+
+
+_WORDS = {bool: ("bool", "true or false", "true or false"), int: ("int", "an integer", "integers"),
+          float: ("float", "a number", "numbers"), str: ("str", "a string", "strings")}
+
+
+def _describe(annotation: Any, metadata: Iterable[Any]) -> tuple[str, str, str]:
+    """(type name, what is allowed as a phrase, bounds) of one schema field."""
+    annotation, inner = _unwrap(annotation)
+    metadata = [*inner, *metadata]
+    origin, args = typing.get_origin(annotation), typing.get_args(annotation)
+    bounds = _metadata_bounds(metadata)
+    if origin is Literal:
+        choices = ", ".join(repr(a) for a in args)
+        return "str", f"one of {choices}", f"one of {choices}"
+    if origin in (typing.Union, types.UnionType) and type(None) in args:
+        (inner_type,) = [a for a in args if a is not type(None)]
+        name, phrase, _ = _describe(inner_type, metadata)
+        return f"{name} | null", f"{phrase} or null", f"{bounds} or null" if bounds else "or null"
+    if origin is list:
+        item, item_meta = _unwrap(args[0])
+        name, _, _ = _describe(item, item_meta)
+        item_bounds = _metadata_bounds(item_meta)
+        plural = _WORDS[item][2] if item in _WORDS else "values"
+        phrase = f"a non-empty list of {plural}" + (f" {item_bounds}" if item_bounds else "")
+        return f"list[{name}]", phrase, f"non-empty, each {item_bounds}" if item_bounds else "non-empty"
+    if origin is dict or annotation is dict:
+        return "mapping", "a mapping of keys to values", ""
+    if annotation in _WORDS:
+        name, phrase, _ = _WORDS[annotation]
+        return name, f"{phrase} {bounds}" if bounds else phrase, bounds
+    return getattr(annotation, "__name__", str(annotation)), str(annotation), bounds  # pragma: no cover
+
+
+def _field_spec(model: type[BaseModel], name: str) -> tuple[str, str, str]:
+    info = model.model_fields[name]
+    extra = info.json_schema_extra if isinstance(info.json_schema_extra, dict) else {}
+    type_name, phrase, bounds = _describe(info.annotation, info.metadata)
+    if "allowed" in extra:
+        phrase = bounds = str(extra["allowed"])
+    return type_name, phrase, bounds
+
+
+def _default(model: type[BaseModel], name: str) -> Any:
+    info = model.model_fields[name]
+    return info.default_factory() if info.default_factory is not None else info.default
+
+
+def _row(section: str, model: type[BaseModel], name: str, kind: str | None) -> dict[str, Any]:
+    type_name, _, bounds = _field_spec(model, name)
+    return {"key": f"{section}.{name}", "type": type_name, "default": copy.deepcopy(_default(model, name)),
+            "bounds": bounds, "meaning": model.model_fields[name].description, "kind": kind}
+
+
+def schema_table() -> list[dict[str, Any]]:
+    """Every config key: ``key`` (dotted), ``type``, ``default``, ``bounds``, ``meaning`` and ``kind``.
+
+    ``kind`` is ``None`` for a key of every learner (and for the other sections), else the learner kind
+    the row belongs to; a learner key whose default differs by kind has one row per kind. The keys under
+    ``env.params`` are the env's own: for our games see ``envs.list_envs()``.
+    """
+    rows: list[dict[str, Any]] = []
+    for section, model in SECTIONS.items():
+        if section != "learner":
+            rows.extend(_row(section, model, name, None) for name in model.model_fields)
+            continue
+        kinds = list(LEARNERS)
+        rows.append({"key": "learner.kind", "type": "str", "default": "idqn",
+                     "bounds": "one of " + ", ".join(repr(k) for k in kinds),
+                     "meaning": "learning algorithm: independent DQN (idqn) or a MADDPG-style centralised "
+                                "critic (maddpg)", "kind": None})
+        names = [n for n in _LearnerBase.model_fields if n != "kind"]
+        names += [n for cls in LEARNERS.values() for n in cls.model_fields if n not in names and n != "kind"]
+        for name in names:
+            owners = [k for k, cls in LEARNERS.items() if name in cls.model_fields]
+            defaults = [_default(LEARNERS[k], name) for k in owners]
+            if len(owners) == len(kinds) and all(d == defaults[0] for d in defaults):
+                rows.append(_row(section, LEARNERS[owners[0]], name, None))
+            else:
+                rows.extend(_row(section, LEARNERS[k], name, k) for k in owners)
+    return rows
+
+
+def valid_keys() -> list[str]:
+    """Every dotted config key (for any learner kind), in schema order."""
+    return list(dict.fromkeys(row["key"] for row in schema_table()))
+
+
+# ------------------------------------------------------------------------------------- error mapping
+
+def _lookup(data: Any, path: Sequence[Any]) -> Any:
+    for part in path:
+        if isinstance(data, dict) and part in data:
+            data = data[part]
+        elif isinstance(data, list) and isinstance(part, int) and part < len(data):
+            data = data[part]
+        else:
+            return None
+    return data
+
+
+def _learner_kind(data: Any) -> str:
+    kind = _lookup(data, ["learner", "kind"])
+    return kind if kind in LEARNERS else "idqn"
+
+
+def _explain(error: dict[str, Any], data: Any) -> str:
+    """One line for the first pydantic error: dotted key, value, what is allowed."""
+    etype = error["type"]
+    if etype == _OWN_ERROR:
+        return str(error["ctx"]["line"])
+    loc = list(error["loc"])
+    if len(loc) >= 2 and loc[0] == "learner" and loc[1] in LEARNERS:
+        kind = loc.pop(1)  # pydantic puts the discriminator's tag into the location
+    else:
+        kind = _learner_kind(data)
+    key = ".".join(str(p) for p in loc[:2])
+    if etype.startswith("union_tag"):
+        kinds = ", ".join(repr(k) for k in LEARNERS)
+        return _not_allowed("learner.kind", _lookup(data, ["learner", "kind"]), f"one of {kinds}")
+    if etype == "invalid_key":  # a YAML key such as 1 or true, which is not a name
+        where = ".".join(str(p) for p in loc[:-1])
+        return f"key {_show(error['input'])}{f' in {where}' if where else ''} is not allowed: expected a name"
+    if not loc:
+        return f"the config must be a mapping of sections ({', '.join(SECTIONS)}); got {_show(data)}"
+    section = str(loc[0])
+    model = LEARNERS[kind] if section == "learner" else SECTIONS.get(section)
+    if etype == "extra_forbidden":
+        if len(loc) == 1:
+            return _unknown(section, "", SECTIONS)
+        name = str(loc[1])
+        others = [k for k, cls in LEARNERS.items() if k != kind and name in cls.model_fields]
+        if section == "learner" and others:
+            return f"learner.{name} is {_a(others[0])} key; learner.kind is {kind!r}"
+        return _unknown(key, f"{section}.", model.model_fields)
+    if len(loc) == 1:
+        return _not_allowed(section, _lookup(data, [section]), "a mapping of keys (a config section)")
+    name = str(loc[1])
+    if model is None or name not in model.model_fields:  # pragma: no cover - pydantic names only our keys
+        return f"{'.'.join(str(p) for p in loc)}: {error['msg']}"
+    _, phrase, _ = _field_spec(model, name)
+    return _not_allowed(key, _lookup(data, [section, name]), phrase)
+
+
+def _a(word: str) -> str:
+    return ("an " if word[:1] in "aeiou" else "a ") + word
+
+
+def _validate(data: Any) -> RunConfig:
+    try:
+        return RunConfig.model_validate(data)
+    except ValidationError as err:
+        raise ConfigError(_explain(err.errors()[0], data)) from None
+
+
+# ------------------------------------------------------------------------------------- YAML reading
+
+class _Loader(yaml.SafeLoader):
+    """PyYAML's safe loader with two changes: ``1e-3`` is a number, as in YAML 1.2 (YAML 1.1 wants a dot),
+    and a key given twice in one mapping is an error instead of the last one silently winning."""
+
+    def construct_mapping(self, node: yaml.MappingNode, deep: bool = False) -> dict:
+        seen: dict[Any, int] = {}
+        for key_node, _ in node.value:
+            if key_node.tag == "tag:yaml.org,2002:merge":
+                continue
+            key = self.construct_object(key_node, deep=True)
+            try:
+                first = seen.get(key)
+            except TypeError:  # an unhashable key: the base class reports it
+                continue
+            if first is not None:
+                raise yaml.constructor.ConstructorError(
+                    None, None, f"key {key!r} appears twice (first on line {first + 1})", key_node.start_mark)
+            seen[key] = key_node.start_mark.line
+        return super().construct_mapping(node, deep=deep)
+
+
+_Loader.add_implicit_resolver(
+    "tag:yaml.org,2002:float",
+    re.compile(r"^[-+]?(?:[0-9][0-9_]*(?:\.[0-9_]*)?|\.[0-9_]+)[eE][-+]?[0-9]+$"),
+    list("-+0123456789."))
+
+
+def _yaml_problem(err: yaml.YAMLError) -> str:
+    mark = getattr(err, "problem_mark", None)
+    problem = getattr(err, "problem", None) or str(err)
+    where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark is not None else ""
+    return f"{where}: {' '.join(str(problem).split())}"
+
+
+class _Dumper(yaml.SafeDumper):
+    """PyYAML's safe dumper with lists of scalars on one line (``[16, 32]``) and mappings as blocks."""
+
+
+def _represent_list(dumper: yaml.SafeDumper, data: list) -> yaml.Node:
+    flat = all(not isinstance(v, (dict, list)) for v in data)
+    return dumper.represent_sequence("tag:yaml.org,2002:seq", data, flow_style=flat)
+
+
+_Dumper.add_representer(list, _represent_list)
+
+
+def _read_yaml(text: str) -> Any:
+    return yaml.load(text, Loader=_Loader)  # _Loader is a yaml.SafeLoader
+
+
+# ----------------------------------------------------------------------------------------- overrides
+
+def _override_paths() -> set[str]:
+    return set(valid_keys()) | set(SECTIONS)
+
+
+def _split_override(item: Any) -> tuple[list[str], Any]:
+    usage = "key.path=value, e.g. learner.lr=1e-3"
+    if not isinstance(item, str) or "=" not in item:
+        raise ConfigError(f"--set {_show(item)} is not allowed: expected {usage}")
+    key, _, text = item.partition("=")
+    key = key.strip()
+    parts = key.split(".")
+    if not key or any(not p or p != p.strip() or " " in p for p in parts):
+        raise ConfigError(f"--set {_show(item)} is not allowed: expected {usage}")
+    try:
+        value = _read_yaml(text)
+    except yaml.YAMLError as err:
+        raise ConfigError(f"--set {_show(item)}: the value is not valid YAML{_yaml_problem(err)}") from None
+    return parts, value
+
+
+def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict[str, Any]:
+    """A copy of ``data`` with each ``"key.path=value"`` set in order (the value parsed as YAML).
+
+    Raises:
+        ConfigError: for an item without ``=``, a key path the schema does not have (under
+            ``env.params`` any name is accepted here; the game checks it at validation), or a path
+            through a value that is not a mapping.
+    """
+    if isinstance(overrides, str):
+        overrides = [overrides]
+    if not isinstance(data, dict):
+        raise ConfigError(f"the config must be a mapping of sections ({', '.join(SECTIONS)}); "
+                          f"got {_show(data)}")
+    out = copy.deepcopy(data)
+    known = _override_paths()
+    for item in overrides:
+        parts, value = _split_override(item)
+        path = ".".join(parts)
+        under_params = parts[:2] == ["env", "params"] and len(parts) > 2
+        if path not in known and not under_params:
+            if parts[0] in SECTIONS and len(parts) > 1:
+                section = parts[0] + "."
+                names = [k[len(section):] for k in valid_keys() if k.startswith(section)]
+            else:  # an unknown section: compare the whole path with every key, else list the sections
+                section, names = "", [*SECTIONS, *valid_keys()]
+                names = names if nearest(path, names) else list(SECTIONS)
+            raise ConfigError(f"--set {item}: {_unknown(path, section, names)}")
+        node = out
+        for depth, part in enumerate(parts[:-1]):
+            child = node.get(part)
+            if child is None:
+                child = node[part] = {}
+            if not isinstance(child, dict):
+                where = ".".join(parts[:depth + 1])
+                raise ConfigError(f"--set {item}: cannot set '{path}' because {where} = {_show(child)} is "
+                                  "not a mapping")
+            node = child
+        node[parts[-1]] = value
+    return out
+
+
+# ------------------------------------------------------------------------------------------ public API
+
+def parse_config(data: dict[str, Any], overrides: Sequence[str] = ()) -> RunConfig:
+    """Validate a config given as a mapping (e.g. parsed YAML), after applying ``overrides``.
+
+    Raises:
+        ConfigError: one line naming the dotted key, the value and what is allowed.
+    """
+    if data is None:
+        data = {}
+    return _validate(apply_overrides(data, overrides))
+
+
+def load_config(path: str | os.PathLike, overrides: Sequence[str] = ()) -> RunConfig:
+    """Read a YAML run config, apply ``overrides`` (``"key.path=value"``) and validate it.
+
+    Raises:
+        ConfigError: a missing or unreadable file, invalid YAML (with its line and column), a top level
+            that is not a mapping, a bad override, or an invalid key or value.
+    """
+    path = Path(path)
+    if not path.is_file():
+        what = "is a directory, not a file" if path.is_dir() else "not found"
+        raise ConfigError(f"config file '{path}' {what}")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as err:
+        raise ConfigError(f"cannot read config file '{path}': {' '.join(str(err).split())}") from None
+    try:
+        data = _read_yaml(text)
+    except yaml.YAMLError as err:
+        raise ConfigError(f"invalid YAML in '{path}'{_yaml_problem(err)}") from None
+    if data is None:
+        data = {}
+    if not isinstance(data, dict):
+        raise ConfigError(f"{path}: the top level must be a mapping of sections ({', '.join(SECTIONS)}); "
+                          f"got {_show(data)}")
+    return parse_config(data, overrides)
+
+
+def config_to_dict(cfg: RunConfig) -> dict[str, Any]:
+    """The resolved config as plain YAML/JSON-ready data: every default filled in, game params included."""
+    return cfg.model_dump(mode="python")
+
+
+def config_hash(cfg: RunConfig) -> str:
+    """A stable 12-hex-digit digest of the resolved config (same config, same hash, in any process)."""
+    text = json.dumps(config_to_dict(cfg), sort_keys=True, separators=(",", ":"), default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
+
+
+def dump_config(cfg: RunConfig, path: str | os.PathLike) -> None:
+    """Write the resolved config as YAML, atomically (a temp file beside ``path``, then ``os.replace``).
+
+    The parent directory is created if needed. :func:`load_config` of the file gives back an equal config.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    body = yaml.dump(config_to_dict(cfg), Dumper=_Dumper, sort_keys=False, default_flow_style=False,
+                     allow_unicode=True, width=100)
+    text = f"# resolved marl-core run config; config_hash {config_hash(cfg)}\n{body}"
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            f.write(text)
+            f.flush()
+            os.fsync(f.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise

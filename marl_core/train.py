@@ -1,0 +1,320 @@
+"""The training loop: one config in, a run directory out.
+
+``run(cfg, out)`` trains a team and writes the run directory; ``resume(out)`` continues one from its last
+checkpoint. Layout of a run directory::
+
+    config.yaml          the resolved config (every default filled in)
+    events.out.tfevents.*  TensorBoard: eval/*, train/*, hparams, GIFs of evaluation episodes
+    metrics.jsonl        one JSON line per evaluation (env_steps, returns, the four social metrics, ...)
+    summary.json         the last evaluation beside the random team's figures (contract keys below)
+    checkpoints/last.pt  learner, optimiser, schedule and RNG states, counters (atomic, weights only)
+    policies/<agent>.pt  each agent's final policy, loadable alone (``marl_core.policy.AgentPolicy``)
+
+``summary.json`` (contract): ``env_steps``, ``episodes``, per-agent ``returns``, ``efficiency``,
+``equality``, ``sustainability``, ``peace``, and the random team's figures under ``random``.
+
+What a resume restores: the learner (networks, targets, optimisers, exploration schedule, RNG states) and
+the counters. What it does not: the replay contents (refilled from fresh experience; updates resume once a
+batch is ready) and the env's mid-episode state (a new episode starts, the interrupted one is not counted).
+A resumed run therefore does not reproduce an uninterrupted one bit for bit; it logs every evaluation step
+exactly once (later lines and TensorBoard events are purged back to the checkpoint).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import torch
+
+from envs.metrics import METRIC_NAMES
+from marl_core.config import RunConfig, config_hash, dump_config, load_config
+from marl_core.errors import CheckpointError, RunDirError
+from marl_core.learners import build_learner
+from marl_core.policy import atomic_torch_save, safe_torch_load
+from marl_core.replay import Replay
+from marl_core.rollout import Collector, evaluate, random_policy
+from marl_core.targets import linear_schedule
+from marl_core.team_env import make_team_env
+
+__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "write_json", "load_run"]
+
+CHECKPOINT_FORMAT = 1
+EVAL_SEED_OFFSET = 1_000_003  # evaluation episodes use seeds apart from training's
+
+
+# ---------------------------------------------------------------------- small file helpers
+def write_json(path: Path, data: Any) -> None:
+    """Write JSON atomically (temp file + rename); NaN becomes null so any JSON reader can read it."""
+    text = json.dumps(_finite(data), indent=2, sort_keys=True)
+    fd, tmp = tempfile.mkstemp(prefix=path.name + ".", suffix=".tmp", dir=path.parent)
+    with os.fdopen(fd, "w") as f:
+        f.write(text + "\n")
+    os.replace(tmp, path)
+
+
+def _finite(x: Any) -> Any:
+    if isinstance(x, dict):
+        return {k: _finite(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_finite(v) for v in x]
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def _result(ev: dict[str, Any]) -> dict[str, Any]:
+    """The JSON-ready part of an evaluation."""
+    keys = ("returns", "return_mean", "episode_length", *METRIC_NAMES)
+    return {"eval_episodes": ev["episodes"], **{k: ev[k] for k in keys}}
+
+
+# ---------------------------------------------------------------------- the run
+class _Run:
+    """State of one training run (built fresh or from a checkpoint)."""
+
+    def __init__(self, cfg: RunConfig, out: Path, quiet: bool, progress: Callable | None):
+        self.cfg, self.out, self.quiet = cfg, out, quiet
+        torch.set_num_threads(cfg.learner.torch_threads)
+        seed = cfg.train.seed
+        e = cfg.env
+        wants_state = cfg.learner.kind == "maddpg" and cfg.learner.critic_input == "state"
+        self.env = make_team_env(e.name, e.params, e.num_envs, seed, with_state=wants_state)
+        self.spec = self.env.spec
+        n_eval = min(cfg.train.eval_episodes, e.num_envs)
+        self.eval_env = make_team_env(e.name, e.params, n_eval, seed + EVAL_SEED_OFFSET,
+                                      render=cfg.log.gif_every > 0, with_state=False)
+        self.learner = build_learner(self.spec, cfg.learner, seed)
+        L = cfg.learner
+        state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
+        self.keep_state = state_space is not None
+        self.replay = Replay(
+            capacity=L.buffer_size, num_envs=e.num_envs, num_agents=self.spec.num_agents,
+            obs_shape=self.spec.obs_shape, obs_dtype=self.spec.obs_dtype, num_actions=self.spec.num_actions,
+            state_shape=None if state_space is None else tuple(state_space.shape),
+            state_dtype=None if state_space is None else state_space.dtype,
+            n_step=getattr(L, "n_step", 1), gamma=L.gamma, prioritized=getattr(L, "prioritized", False),
+            alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed)
+        self.env_steps = self.vec_steps = self.episodes = self.evals = 0
+        self.random: dict[str, Any] | None = None
+        self.last_eval: dict[str, Any] | None = None
+        self.progress = progress
+        self.writer = None
+
+    # -- checkpoints
+    def save_checkpoint(self) -> None:
+        atomic_torch_save({
+            "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
+            "counters": {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
+                         "evals": self.evals},
+            "random": json.dumps(_finite(self.random)), "last_eval": json.dumps(_finite(self.last_eval)),
+            "learner": self.learner.state_dict(), "replay_rng": self.replay.rng_state(),
+            "torch_rng": torch.get_rng_state(),
+        }, self.out / "checkpoints" / "last.pt")
+
+    def load_checkpoint(self) -> None:
+        path = self.out / "checkpoints" / "last.pt"
+        data = safe_torch_load(path, "checkpoint")
+        if data["format"] != CHECKPOINT_FORMAT:
+            raise CheckpointError(f"checkpoint '{path}' has format {data['format']}; this version reads "
+                                  f"format {CHECKPOINT_FORMAT}")
+        if data.get("config_hash") != config_hash(self.cfg):
+            raise CheckpointError(f"checkpoint '{path}' was written for a different config.yaml; "
+                                  f"restore the run's config.yaml or start a new run")
+        c = data["counters"]
+        self.env_steps, self.vec_steps = int(c["env_steps"]), int(c["vec_steps"])
+        self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
+        self.random, self.last_eval = json.loads(data["random"]), json.loads(data["last_eval"])
+        self.learner.load_state_dict(data["learner"])
+        self.replay.set_rng_state(data["replay_rng"])
+        torch.set_rng_state(data["torch_rng"])
+
+    # -- logging
+    def open_logs(self, purge_step: int | None) -> None:
+        metrics = self.out / "metrics.jsonl"
+        if purge_step is not None and metrics.exists():  # drop what was logged after the checkpoint
+            keep = [line for line in metrics.read_text().splitlines()
+                    if line.strip() and json.loads(line)["env_steps"] <= purge_step]
+            fd, tmp = tempfile.mkstemp(dir=self.out, suffix=".tmp")
+            with os.fdopen(fd, "w") as f:
+                f.write("".join(line + "\n" for line in keep))
+            os.replace(tmp, metrics)
+        if self.cfg.log.tensorboard:
+            from torch.utils.tensorboard import SummaryWriter
+
+            self.writer = SummaryWriter(log_dir=str(self.out), purge_step=purge_step)
+
+    def scalar(self, tag: str, value: float) -> None:
+        if self.writer is not None and value is not None and math.isfinite(value):
+            self.writer.add_scalar(tag, value, self.env_steps)
+
+    def log_eval(self, ev: dict[str, Any]) -> None:
+        row = {"env_steps": self.env_steps, "episodes": self.episodes, **_result(ev)}
+        with open(self.out / "metrics.jsonl", "a") as f:
+            f.write(json.dumps(_finite(row), sort_keys=True) + "\n")
+        for m in (*METRIC_NAMES, "return_mean"):
+            self.scalar(f"eval/{m}", ev[m])
+        for a, r in ev["returns"].items():
+            self.scalar(f"eval/return/{a}", r)
+        for m in (*METRIC_NAMES, "return_mean"):
+            self.scalar(f"random/{m}", self.random[m])
+        if ev.get("frames") and self.writer is not None:
+            from marl_core.tb import add_gif
+
+            add_gif(self.writer, "eval/episode", ev["frames"], self.env_steps, fps=8)
+
+    # -- evaluation
+    def evaluate(self) -> dict[str, Any]:
+        self.evals += 1
+        gif = self.cfg.log.gif_every > 0 and (self.evals - 1) % self.cfg.log.gif_every == 0
+        ev = evaluate(self.eval_env, lambda o: self.learner.act(o, explore=False),
+                      self.cfg.train.eval_episodes, self.cfg.train.seed + EVAL_SEED_OFFSET, gif=gif)
+        self.last_eval = _result(ev)
+        self.log_eval(ev)
+        return ev
+
+    def measure_random(self) -> None:
+        t = self.cfg.train
+        self.random = _result(evaluate(self.eval_env, random_policy(self.spec.num_actions, t.seed),
+                                       t.random_episodes, t.seed + EVAL_SEED_OFFSET))
+
+    # -- the loop
+    def train(self) -> dict[str, Any]:
+        cfg, L, T = self.cfg, self.cfg.learner, self.cfg.train
+        B = cfg.env.num_envs
+        col = Collector(self.env, T.seed + self.env_steps)
+        self.replay.start(col.obs, col.state if self.keep_state else None)
+        next_eval = (self.env_steps // T.eval_every + 1) * T.eval_every
+        next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
+        next_log = (self.env_steps // cfg.log.log_every + 1) * cfg.log.log_every
+        stats: dict[str, float] = {}
+        t0, s0 = time.perf_counter(), self.env_steps
+        prioritized = getattr(L, "prioritized", False)
+        while self.env_steps < T.total_steps:
+            actions = self.learner.act(col.obs, explore=True, env_steps=self.env_steps)
+            st = col.step(actions)
+            self.replay.add(actions, st.rewards, st.terminated, st.end, st.obs,
+                            st.state if self.keep_state else None, st.reset_obs,
+                            st.reset_state if self.keep_state else None)
+            self.env_steps += B
+            self.vec_steps += 1
+            self.episodes += int(st.end.sum())
+            if (self.env_steps >= L.learning_starts and self.vec_steps % L.train_every == 0
+                    and len(self.replay) >= L.batch_size):
+                beta = linear_schedule(self.env_steps, getattr(L, "priority_beta0", 1.0), 1.0, T.total_steps)
+                for _ in range(L.updates_per_round):
+                    batch = self.replay.sample(L.batch_size, beta=beta)
+                    stats = self.learner.update(batch)
+                    if prioritized:
+                        self.replay.update_priorities(batch["indices"], self.learner.priorities)
+            if self.env_steps >= next_log:
+                next_log += cfg.log.log_every
+                for k, v in stats.items():
+                    self.scalar(f"train/{k}", v)
+                self.scalar("train/epsilon", self.learner.epsilon(self.env_steps))
+                rate = (self.env_steps - s0) / max(time.perf_counter() - t0, 1e-9)
+                self.scalar("train/env_steps_per_s", rate)
+            if self.env_steps >= next_eval or self.env_steps >= T.total_steps:
+                next_eval = (self.env_steps // T.eval_every + 1) * T.eval_every
+                self.evaluate()
+            if self.env_steps >= next_ckpt or self.env_steps >= T.total_steps:
+                next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
+                self.save_checkpoint()
+            if self.progress is not None:
+                self.progress(self.env_steps, T.total_steps, self.last_eval)
+        return self.finish()
+
+    def finish(self) -> dict[str, Any]:
+        if self.last_eval is None:
+            self.evaluate()
+        for i, agent in enumerate(self.spec.agents):
+            self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
+        summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
+                   "random": self.random, "learner": self.cfg.learner.kind, "env": self.cfg.env.name,
+                   "seed": self.cfg.train.seed}
+        write_json(self.out / "summary.json", summary)
+        if self.writer is not None:
+            from marl_core.tb import add_hparams
+
+            add_hparams(self.writer, self.cfg, summary)
+            self.writer.close()
+        self.env.close()
+        self.eval_env.close()
+        return summary
+
+
+# ---------------------------------------------------------------------- entry points
+def _fresh_dir(out: Path) -> None:
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise RunDirError(f"run directory '{out}' already exists and is not empty; choose a new --out, or "
+                          f"continue it with: marl-core train --resume {out}")
+
+
+def run(cfg: RunConfig, out: str | Path, quiet: bool = True,
+        progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
+    """Train from scratch into the new run directory ``out``; return the summary."""
+    out = Path(out)
+    _fresh_dir(out)
+    r = _Run(cfg, out, quiet, progress)  # builds envs and learner first: a bad env fails before any file
+    out.mkdir(parents=True, exist_ok=True)
+    (out / "checkpoints").mkdir(exist_ok=True)
+    dump_config(cfg, out / "config.yaml")
+    r.open_logs(purge_step=None)
+    r.measure_random()
+    return r.train()
+
+
+def load_run(out: str | Path) -> RunConfig:
+    """The resolved config of an existing run directory."""
+    out = Path(out)
+    if not (out / "config.yaml").is_file():
+        raise RunDirError(f"'{out}' is not a run directory (no config.yaml)")
+    return load_config(out / "config.yaml")
+
+
+def resume(out: str | Path, quiet: bool = True,
+           progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
+    """Continue the run in ``out`` from its last checkpoint; return the summary."""
+    out = Path(out)
+    cfg = load_run(out)
+    if not (out / "checkpoints" / "last.pt").is_file():
+        raise RunDirError(f"run directory '{out}' has no checkpoint to resume from (checkpoints/last.pt)")
+    r = _Run(cfg, out, quiet, progress)
+    r.load_checkpoint()
+    if r.env_steps >= cfg.train.total_steps and (out / "summary.json").is_file():
+        return json.loads((out / "summary.json").read_text())
+    r.open_logs(purge_step=r.env_steps)
+    return r.train()
+
+
+
+def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path | None = None,
+                 seed: int | None = None) -> dict[str, Any]:
+    """Evaluate the last checkpoint of a run with exploration off; the keys match ``summary.json``."""
+    out = Path(out)
+    cfg = load_run(out)
+    if not (out / "checkpoints" / "last.pt").is_file():
+        raise RunDirError(f"run directory '{out}' has no checkpoint to evaluate (checkpoints/last.pt)")
+    if episodes is not None and episodes < 1:
+        raise RunDirError(f"--episodes = {episodes} is not allowed; expected an integer >= 1")
+    n = episodes or cfg.train.eval_episodes
+    r = _Run(cfg, out, True, None)
+    r.load_checkpoint()
+    env = make_team_env(cfg.env.name, cfg.env.params, min(n, cfg.env.num_envs), cfg.train.seed + EVAL_SEED_OFFSET,
+                        render=gif is not None)
+    ev = evaluate(env, lambda o: r.learner.act(o, explore=False), n,
+                  cfg.train.seed + EVAL_SEED_OFFSET if seed is None else seed, gif=gif is not None)
+    env.close()
+    r.env.close()
+    r.eval_env.close()
+    if gif is not None:
+        from envs.render import write_gif
+
+        write_gif(ev["frames"], gif)
+    return {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": r.random}
