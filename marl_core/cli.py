@@ -113,30 +113,27 @@ class _Progress:
 
     def __init__(self, quiet: bool):
         self.quiet, self.bar, self.task, self.last = quiet, None, None, None
+        self.s0: int | None = None
+        self.t0 = 0.0
 
     def __enter__(self):
-        if not self.quiet:
-            from rich.progress import (
-                BarColumn,
-                MofNCompleteColumn,
-                Progress,
-                TextColumn,
-                TimeRemainingColumn,
-            )
-
-            self.bar = Progress(TextColumn("[bold]train"), BarColumn(), MofNCompleteColumn(),
-                                TextColumn("{task.fields[rate]} steps/s"), TimeRemainingColumn(),
-                                TextColumn("eval return {task.fields[ret]}"))
-            self.bar.__enter__()
-        self.t0 = __import__("time").perf_counter()
-        self.s0 = None
         return self
+
+    def _start(self) -> None:  # the bar appears with the first step, so an early error prints nothing else
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+        self.bar = Progress(TextColumn("[bold]train"), BarColumn(), MofNCompleteColumn(),
+                            TextColumn("{task.fields[rate]} steps/s"), TimeRemainingColumn(),
+                            TextColumn("eval return {task.fields[ret]}"))
+        self.bar.__enter__()
 
     def __call__(self, step: int, total: int, last: dict | None) -> None:
         import time
 
         if self.s0 is None:
             self.s0, self.t0 = step, time.perf_counter()
+            if not self.quiet:
+                self._start()
         rate = (step - self.s0) / max(time.perf_counter() - self.t0, 1e-9)
         ret = _fmt(last["return_mean"]) if last else "-"
         if self.bar is not None:

@@ -343,8 +343,9 @@ class MADDPGConfig(_LearnerBase):
     critic: Literal["shared", "per_agent"] = Field("shared", description="one critic for the team "
                                                    "(shared) or one per agent")
     critic_input: Literal["auto", "state", "observations"] = Field("auto", description="what the critic "
-                                                                   "sees besides the actions; auto = the "
-                                                                   "env's state when it has one")
+                                                                   "sees besides the actions; auto = "
+                                                                   "every agent's observation (Lowe et "
+                                                                   "al. 2017), state = the env's state()")
     actor_lr: float = Field(1e-3, gt=0.0, description="Adam learning rate of the actors")
     tau: float = Field(0.01, gt=0.0, le=1.0, description="Polyak step of the target networks per update")
     gumbel_temperature: float = Field(1.0, gt=0.0, description="temperature of the straight-through "

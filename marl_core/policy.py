@@ -95,6 +95,9 @@ class AgentPolicy:
     @classmethod
     def load(cls, path: str | Path) -> AgentPolicy:
         data = safe_torch_load(path, "policy")
+        if data.get("kind") not in ("q", "actor") or "net" not in data or "weights" not in data:
+            raise CheckpointError(f"policy '{path}' is not an agent policy file (a training checkpoint? "
+                                  f"policies are in RUN_DIR/policies/<agent>.pt)")
         if data["format"] != POLICY_FORMAT:
             raise CheckpointError(f"policy '{path}' has format {data['format']}; this version reads "
                                   f"format {POLICY_FORMAT}")

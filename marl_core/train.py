@@ -7,6 +7,7 @@ checkpoint. Layout of a run directory::
     events.out.tfevents.*  TensorBoard: eval/*, train/*, hparams, GIFs of evaluation episodes
     metrics.jsonl        one JSON line per evaluation (env_steps, returns, the four social metrics, ...)
     summary.json         the last evaluation beside the random team's figures (contract keys below)
+    episode.gif          one episode of the final evaluation (when log.gif_every > 0)
     checkpoints/last.pt  learner, optimiser, schedule and RNG states, counters (atomic, weights only)
     policies/<agent>.pt  each agent's final policy, loadable alone (``marl_core.policy.AgentPolicy``)
 
@@ -148,7 +149,9 @@ class _Run:
         if self.cfg.log.tensorboard:
             from torch.utils.tensorboard import SummaryWriter
 
-            self.writer = SummaryWriter(log_dir=str(self.out), purge_step=purge_step)
+            # TensorBoard keeps events with step < purge_step; the checkpoint's own step stays logged
+            self.writer = SummaryWriter(log_dir=str(self.out),
+                                        purge_step=None if purge_step is None else purge_step + 1)
 
     def scalar(self, tag: str, value: float) -> None:
         if self.writer is not None and value is not None and math.isfinite(value):
@@ -170,13 +173,19 @@ class _Run:
             add_gif(self.writer, "eval/episode", ev["frames"], self.env_steps, fps=8)
 
     # -- evaluation
-    def evaluate(self) -> dict[str, Any]:
+    def evaluate(self, final: bool = False) -> dict[str, Any]:
+        """Evaluate with exploration off; the final evaluation also writes ``episode.gif``."""
         self.evals += 1
-        gif = self.cfg.log.gif_every > 0 and (self.evals - 1) % self.cfg.log.gif_every == 0
+        every = self.cfg.log.gif_every
+        gif = every > 0 and ((self.evals - 1) % every == 0 or final)
         ev = evaluate(self.eval_env, lambda o: self.learner.act(o, explore=False),
                       self.cfg.train.eval_episodes, self.cfg.train.seed + EVAL_SEED_OFFSET, gif=gif)
         self.last_eval = _result(ev)
         self.log_eval(ev)
+        if final and ev.get("frames"):
+            from envs.render import write_gif
+
+            write_gif(ev["frames"], self.out / "episode.gif")
         return ev
 
     def measure_random(self) -> None:
@@ -222,7 +231,7 @@ class _Run:
                 self.scalar("train/env_steps_per_s", rate)
             if self.env_steps >= next_eval or self.env_steps >= T.total_steps:
                 next_eval = (self.env_steps // T.eval_every + 1) * T.eval_every
-                self.evaluate()
+                self.evaluate(final=self.env_steps >= T.total_steps)
             if self.env_steps >= next_ckpt or self.env_steps >= T.total_steps:
                 next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
                 self.save_checkpoint()
@@ -232,7 +241,7 @@ class _Run:
 
     def finish(self) -> dict[str, Any]:
         if self.last_eval is None:
-            self.evaluate()
+            self.evaluate(final=True)
         for i, agent in enumerate(self.spec.agents):
             self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,

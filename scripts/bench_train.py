@@ -1,0 +1,555 @@
+"""Throughput benchmark of the training loop: where the wall time of ``marl_core.train`` goes.
+
+This is a benchmark, not a test: it measures and prints, it asserts nothing and it exits 0.
+
+What it measures, for each learner (``idqn`` and ``maddpg``) on ``harvest_v0`` (layout ``harvest_small``,
+5 agents, view radius 7, the game's default ``max_cycles`` unless overridden), one learner after the other
+in the same process:
+
+``env_steps_per_s``
+    Env steps (vector steps x ``num_envs``) per wall second of the measured window, inside the real
+    training loop: a ``marl_core.train._Run`` is built from a config made by ``parse_config`` and its own
+    ``train()`` runs. Nothing of the loop is reproduced here; only instance attributes of the run's
+    objects are replaced by timing wrappers that call the originals: ``env.step``, ``learner.act``,
+    ``learner.update``, ``replay.add``, ``replay.sample``, ``replay.update_priorities`` and the run's own
+    ``scalar``, ``evaluate`` and ``save_checkpoint``.
+``fractions``
+    Shares of the window's wall time in ``env_step`` (``env.step``, the batched game's step plus the
+    automatic reset at an episode end), ``act`` (``learner.act``), ``update`` (``replay.sample`` +
+    ``learner.update`` + ``replay.update_priorities``) and ``everything_else`` = 1 - the three: the loop's
+    own bookkeeping, ``Collector.step``'s merge of reset observations, ``replay.add`` (also reported on
+    its own as ``replay_add``), logging and the checkpoints that fall inside the window.
+    ``cpu_time_fractions`` are the same shares of this process's CPU time, which other processes on the
+    machine disturb less than wall time.
+``bare_update_per_s``
+    The same learner (same config, same seed) built alone, updated in a tight loop on one fixed random
+    batch of the replay's shapes and dtypes (uint8 observations of 0/1): best of three timed repeats after
+    a warm-up (all three are listed; ``bare_update_per_cpu_s`` is the best in CPU time). Beside it:
+    ``loop_updates_per_s`` (updates per wall second of the window), ``loop_update_calls_per_s``
+    (updates per wall second spent inside ``learner.update``) and ``loop_update_per_cpu_s`` (the same in
+    CPU time), so the cost of an update inside the loop can be compared with the bare one.
+``replay_bytes_per_transition`` / ``raw_obs_bytes_per_transition``
+    ``Replay.bytes_per_transition`` (every preallocated array, sum-tree included, over the slots) and
+    ``Replay.raw_bytes_per_transition`` (one joint observation, plus the state when one is stored; with
+    maddpg's default ``critic_input: auto`` the critic reads observations and no state is stored), and
+    their ratio ``replay_over_raw``.
+
+Method. The run's config is the library's defaults for the learner (network sizes, batch size, buffer,
+``train_every``, ``updates_per_round``, torch threads) with: the env above and ``num_envs`` (default 8,
+the library default); ``learning_starts`` = the batch size rounded up to whole vector steps (with
+``n_step: 1`` a transition can be sampled as soon as it is recorded), and the warm-up ends
+``--warmup-updates`` update rounds later (default 3), so first-call costs such as Adam's state
+allocation fall outside the window and every vector step of the window runs its update round;
+``total_steps`` = warm-up + window; ``eval_every`` = ``total_steps`` (no evaluation inside the window;
+the loop's evaluation at ``total_steps`` comes after the window closes); ``eval_episodes`` and
+``random_episodes`` 1 (outside the window, they only cost time); TensorBoard, GIFs and the progress bar
+off; ``log_every`` and ``checkpoint_every`` at their defaults, so a checkpoint that falls inside the
+window is counted in ``everything_else`` as in a real run. The bare update loop runs first; without
+``--steps`` the window is sized from its median repeat for about ``--seconds`` (default 30). The window
+opens when ``learner.act`` is first called with ``env_steps >=`` the warm-up and closes when the loop
+calls its evaluation at ``total_steps``; the final evaluation, checkpoint and run files are timed apart
+(``excluded_after_window_s``). The run writes into a temporary directory that is deleted afterwards. Each
+wrapper reads two clocks twice; that cost is measured on a no-op and reported
+(``timer_overhead_fraction``); it falls on the timed parts.
+
+Noise. The window is one long run, not a best of repeats (a training loop's state moves on). Other
+processes on the machine slow it down: ``cpu_time_over_wall`` (this process's CPU time over the window's
+wall time; torch runs one intra-op thread by default) well below 1, a wide spread of the bare repeats
+and the load averages in the JSON say the wall-time figures are pessimistic.
+
+How to read it. Compare figures only between runs on the same machine (the JSON carries python, torch,
+numpy, platform, CPU and torch threads). ``targets`` lists what this project aims for and
+``targets_met`` says whether this run reached it; neither changes the exit code.
+
+Usage::
+
+    python scripts/bench_train.py                 # a short table
+    python scripts/bench_train.py --json          # one JSON object
+    python scripts/bench_train.py --json --learners idqn --steps 8000 --num-envs 16
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import platform
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+__all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measure_loop", "measure_bare",
+           "bench_learner", "main"]
+
+LEARNERS: tuple[str, ...] = ("idqn", "maddpg")
+GAME, LAYOUT = "harvest_v0", "harvest_small"
+TARGETS: dict[str, float] = {"everything_else_fraction_max": 0.15, "replay_over_raw_max": 1.1}
+DEFAULT_SECONDS = 30.0  # target length of the measured window when --steps is not given
+DEFAULT_WARMUP_UPDATES = 3
+_BARE_REPEATS = 3
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
+
+
+def _round_up(value: int, multiple: int) -> int:
+    return -(-value // multiple) * multiple
+
+
+def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max_cycles: int | None,
+                seed: int, learning_starts: int = 0, total_steps: int = 1):
+    """The run config of one measurement (see the module docstring)."""
+    from marl_core.config import parse_config
+
+    params: dict[str, Any] = {"layout": LAYOUT, "num_agents": num_agents, "view_radius": view_radius}
+    if max_cycles is not None:
+        params["max_cycles"] = max_cycles
+    return parse_config({
+        "env": {"name": GAME, "params": params, "num_envs": num_envs},
+        "learner": {"kind": kind, "learning_starts": learning_starts},
+        "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
+                  "eval_episodes": 1, "random_episodes": 1},
+        "log": {"tensorboard": False, "gif_every": 0, "progress": False},
+    })
+
+
+def plan(learner_cfg: Any, num_envs: int, warmup_updates: int) -> tuple[int, int]:
+    """(learning_starts, warm-up env steps): learning starts as soon as replay holds a batch (with
+    ``n_step: 1`` a transition is sampleable once recorded), and the warm-up ends ``warmup_updates`` update
+    rounds later; both are multiples of ``num_envs``."""
+    B = num_envs
+    starts = max(_round_up(learner_cfg.batch_size, B), B)
+    return starts, starts + warmup_updates * learner_cfg.train_every * B
+
+
+def window_steps(learner_cfg: Any, num_envs: int, bare_update_per_s: float, seconds: float) -> int:
+    """Env steps for a window of about ``seconds``, assuming updates take 90% of the loop's time at the
+    bare update rate (a multiple of ``num_envs``, at least 10 vector steps)."""
+    per_vec_step = learner_cfg.updates_per_round / learner_cfg.train_every / bare_update_per_s / 0.9
+    return max(10, round(seconds / per_vec_step)) * num_envs
+
+
+class _Clock:
+    """Accumulates wall time per part while the window is open."""
+
+    def __init__(self, warmup: int):
+        self.warmup = warmup
+        self.active = self.closed = False
+        self.seconds: dict[str, float] = {}
+        self.cpu_seconds: dict[str, float] = {}
+        self.calls: dict[str, int] = {}
+        self.t0 = self.t1 = self.cpu0 = self.cpu1 = 0.0
+        self.steps0 = self.episodes0 = self.updates0 = 0
+        self.load0: tuple[float, ...] = ()
+        self.after: dict[str, float] = {}
+
+    def add(self, key: str, dt: float, dcpu: float) -> None:
+        self.seconds[key] = self.seconds.get(key, 0.0) + dt
+        self.cpu_seconds[key] = self.cpu_seconds.get(key, 0.0) + dcpu
+        self.calls[key] = self.calls.get(key, 0) + 1
+
+
+def _timed(clock: _Clock, key: str, fn):
+    perf, cpu = time.perf_counter, time.process_time
+
+    def wrapper(*args, **kwargs):
+        if not clock.active:
+            return fn(*args, **kwargs)
+        t, c = perf(), cpu()
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            clock.add(key, perf() - t, cpu() - c)
+
+    return wrapper
+
+
+def _timer_overhead_s() -> float:
+    """Seconds one timing wrapper adds to a call (measured on a no-op, best of 5)."""
+    clock = _Clock(0)
+    clock.active = True
+
+    def noop():
+        return None
+
+    wrapped, n, best = _timed(clock, "x", noop), 100_000, float("inf")
+    for _ in range(5):
+        t = time.perf_counter()
+        for _ in range(n):
+            noop()
+        bare = time.perf_counter() - t
+        t = time.perf_counter()
+        for _ in range(n):
+            wrapped()
+        best = min(best, (time.perf_counter() - t - bare) / n)
+    return max(best, 0.0)
+
+
+def _instrument(r: Any, clock: _Clock) -> None:
+    """Replace instance attributes of the run's objects with timing wrappers around the originals."""
+    r.env.step = _timed(clock, "env_step", r.env.step)
+    r.replay.add = _timed(clock, "replay_add", r.replay.add)
+    r.replay.sample = _timed(clock, "replay_sample", r.replay.sample)
+    r.replay.update_priorities = _timed(clock, "update_priorities", r.replay.update_priorities)
+    r.learner.update = _timed(clock, "learner_update", r.learner.update)
+    r.scalar = _timed(clock, "logging", r.scalar)
+    act = _timed(clock, "act", r.learner.act)
+
+    def open_window_then_act(obs, explore, env_steps=0):
+        if explore and not clock.active and not clock.closed and env_steps >= clock.warmup:
+            clock.active = True
+            clock.steps0, clock.episodes0, clock.updates0 = env_steps, r.episodes, r.learner.updates
+            clock.load0 = os.getloadavg()
+            clock.cpu0, clock.t0 = time.process_time(), time.perf_counter()
+        return act(obs, explore=explore, env_steps=env_steps)
+
+    r.learner.act = open_window_then_act
+    evaluate, save = r.evaluate, r.save_checkpoint
+
+    def close_window_then_evaluate(final: bool = False):
+        if clock.active:
+            clock.t1, clock.cpu1 = time.perf_counter(), time.process_time()
+            clock.active, clock.closed = False, True
+        t = time.perf_counter()
+        out = evaluate(final=final)
+        clock.after["final_evaluation"] = clock.after.get("final_evaluation", 0.0) + time.perf_counter() - t
+        return out
+
+    timed_save = _timed(clock, "checkpoint", save)
+
+    def timed_checkpoint():
+        if clock.active:
+            return timed_save()
+        t = time.perf_counter()
+        save()
+        clock.after["final_checkpoint"] = clock.after.get("final_checkpoint", 0.0) + time.perf_counter() - t
+
+    r.evaluate, r.save_checkpoint = close_window_then_evaluate, timed_checkpoint
+
+
+def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
+    """Run the real ``_Run.train()`` of ``cfg`` in a temporary directory with the parts timed."""
+    from marl_core.config import dump_config
+    from marl_core.train import _Run
+
+    tmp = Path(tempfile.mkdtemp(prefix="bench_train_"))
+    try:
+        out = tmp / "run"
+        t_build = time.perf_counter()
+        r = _Run(cfg, out, True, None)  # the same steps as marl_core.train.run, which gives no handle on r
+        out.mkdir(parents=True)
+        (out / "checkpoints").mkdir()
+        dump_config(cfg, out / "config.yaml")
+        r.open_logs(purge_step=None)
+        r.measure_random()
+        clock = _Clock(warmup)
+        _instrument(r, clock)
+        t_train = time.perf_counter()
+        r.train()
+        t_end = time.perf_counter()
+        info = {
+            "replay_bytes_per_transition": r.replay.bytes_per_transition,
+            "raw_obs_bytes_per_transition": r.replay.raw_bytes_per_transition,
+            "replay_stores_state": r.keep_state,
+            "replay_capacity": r.replay.capacity,
+            "obs_shape": list(r.spec.obs_shape),
+            "obs_dtype": str(r.spec.obs_dtype),
+            "num_actions": r.spec.num_actions,
+            "updates_total": r.learner.updates,
+            "episodes_total": r.episodes,
+            "torch_threads": _torch_threads(),
+        }
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    if not clock.closed:
+        raise RuntimeError("the measured window never closed; is --steps at least one vector step?")
+    window = clock.t1 - clock.t0
+    env_steps = cfg.train.total_steps - clock.steps0
+    return {"clock": clock, "window_s": window, "window_env_steps": env_steps,
+            "warmup_s": clock.t0 - t_train, "setup_s": t_train - t_build,
+            "after_window_s": t_end - clock.t1, **info}
+
+
+def _torch_threads() -> dict[str, int]:
+    import torch
+
+    return {"intra_op": torch.get_num_threads(), "inter_op": torch.get_num_interop_threads()}
+
+
+def _fixed_batch(spec: Any, cfg: Any, seed: int) -> dict[str, Any]:
+    """A random batch with the keys, shapes and dtypes of ``Replay.sample`` (no state: none is stored)."""
+    import numpy as np
+
+    rng = np.random.default_rng(seed)
+    K, N = cfg.batch_size, spec.num_agents
+    obs_shape = (K, N, *spec.obs_shape)
+    return {
+        "obs": rng.integers(0, 2, size=obs_shape, dtype=np.uint8),
+        "next_obs": rng.integers(0, 2, size=obs_shape, dtype=np.uint8),
+        "actions": rng.integers(0, spec.num_actions, size=(K, N), dtype=np.int64),
+        "returns": rng.normal(size=(K, N)).astype(np.float32),
+        "discounts": np.full((K, N), cfg.gamma, np.float32),
+        "weights": np.ones(K, np.float32),
+        "indices": np.arange(K, dtype=np.int64),
+    }
+
+
+def measure_bare(cfg: Any, seconds: float) -> dict[str, Any]:
+    """``learner.update`` of a freshly built learner on one fixed batch, in a tight loop."""
+    import torch
+
+    from marl_core.learners import build_learner
+    from marl_core.team_env import make_team_env
+
+    torch.set_num_threads(cfg.learner.torch_threads)  # as _Run does
+    env = make_team_env(cfg.env.name, cfg.env.params, 1, cfg.train.seed, with_state=False)
+    spec = env.spec
+    env.close()
+    learner = build_learner(spec, cfg.learner, cfg.train.seed)
+    batch = _fixed_batch(spec, cfg.learner, cfg.train.seed)
+    update = learner.update
+    t, warm = time.perf_counter(), 0
+    while warm < 5 or time.perf_counter() - t < 0.1 * seconds:
+        update(batch)
+        warm += 1
+    per_update = (time.perf_counter() - t) / warm
+    n = max(3, int(0.9 * seconds / _BARE_REPEATS / per_update))
+    rates, cpu_rates = [], []
+    for _ in range(_BARE_REPEATS):
+        t, c = time.perf_counter(), time.process_time()
+        for _ in range(n):
+            update(batch)
+        rates.append(n / (time.perf_counter() - t))
+        cpu_rates.append(n / (time.process_time() - c))
+    return {"best": max(rates), "median": sorted(rates)[len(rates) // 2], "repeats": rates,
+            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm}
+
+
+def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
+    """Every figure of one learner: the bare update loop first (it also sizes the default window)."""
+    from marl_core.config import config_to_dict
+
+    B = args.num_envs
+    base = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed)
+    bare = measure_bare(base, args.bare_seconds)
+    starts, warmup = plan(base.learner, B, args.warmup_updates)
+    if args.steps:
+        steps, chosen = _round_up(args.steps, B), "--steps"
+    else:
+        steps = window_steps(base.learner, B, bare["median"], args.seconds)
+        chosen = f"from the bare update rate, for about {args.seconds:g} s"
+    cfg = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
+                      learning_starts=starts, total_steps=warmup + steps)
+    loop = measure_loop(cfg, warmup)
+    clock, window = loop["clock"], loop["window_s"]
+    sec = clock.seconds
+    calls = clock.calls
+    update_s = sec.get("replay_sample", 0.0) + sec.get("learner_update", 0.0) + sec.get(
+        "update_priorities", 0.0)
+    parts = {"env_step": sec.get("env_step", 0.0), "act": sec.get("act", 0.0), "update": update_s}
+    else_s = window - sum(parts.values())
+    overhead = _timer_overhead_s() * sum(calls.values())
+    updates = calls.get("learner_update", 0)
+    vec_steps = loop["window_env_steps"] // B
+    named_else = {k: sec.get(k, 0.0) for k in ("replay_add", "logging", "checkpoint")}
+    fractions = {**{k: v / window for k, v in parts.items()}, "everything_else": else_s / window,
+                 "replay_add": named_else["replay_add"] / window}
+    cpu = clock.cpu_seconds
+    cpu_window = clock.cpu1 - clock.cpu0
+    cpu_parts = {"env_step": cpu.get("env_step", 0.0), "act": cpu.get("act", 0.0),
+                 "update": sum(cpu.get(k, 0.0)
+                               for k in ("replay_sample", "learner_update", "update_priorities"))}
+    cpu_fractions = {**{k: v / cpu_window for k, v in cpu_parts.items()},
+                     "everything_else": 1 - sum(cpu_parts.values()) / cpu_window,
+                     "replay_add": cpu.get("replay_add", 0.0) / cpu_window}
+    ratio = loop["replay_bytes_per_transition"] / loop["raw_obs_bytes_per_transition"]
+    L = cfg.learner
+    return {
+        "env_steps_per_s": round(loop["window_env_steps"] / window, 1),
+        "fractions": {k: round(v, 4) for k, v in fractions.items()},
+        "cpu_time_fractions": {k: round(v, 4) for k, v in cpu_fractions.items()},
+        "seconds": {
+            "window": round(window, 3),
+            **{k: round(v, 3) for k, v in parts.items()},
+            "update_parts": {k: round(sec.get(k, 0.0), 3)
+                             for k in ("replay_sample", "learner_update", "update_priorities")},
+            "everything_else": round(else_s, 3),
+            "everything_else_parts": {**{k: round(v, 3) for k, v in named_else.items()},
+                                      "loop_and_collector_rest": round(else_s - sum(named_else.values()), 3)},
+        },
+        "ms_per_vector_step": {
+            "total": round(1e3 * window / vec_steps, 3),
+            **{k: round(1e3 * v / vec_steps, 3) for k, v in parts.items()},
+            "everything_else": round(1e3 * else_s / vec_steps, 3),
+            "replay_add": round(1e3 * named_else["replay_add"] / vec_steps, 3),
+        },
+        "calls_in_window": dict(sorted(calls.items())),
+        "timer_overhead_fraction": round(overhead / window, 5),
+        "bare_update_per_s": round(bare["best"], 2),
+        "bare_update_per_cpu_s": round(bare["cpu_best"], 2),
+        "bare_update_per_s_repeats": [round(x, 2) for x in bare["repeats"]],
+        "bare_updates_per_repeat": bare["updates_per_repeat"],
+        "loop_updates_per_s": round(updates / window, 2),
+        "loop_update_calls_per_s": round(updates / sec["learner_update"], 2) if updates else None,
+        "loop_update_call_over_bare": (round(updates / sec["learner_update"] / bare["best"], 3)
+                                       if updates else None),
+        "loop_update_per_cpu_s": (round(updates / clock.cpu_seconds["learner_update"], 2)
+                                  if updates else None),
+        "replay_bytes_per_transition": round(loop["replay_bytes_per_transition"], 2),
+        "raw_obs_bytes_per_transition": loop["raw_obs_bytes_per_transition"],
+        "replay_over_raw": round(ratio, 4),
+        "replay_stores_state": loop["replay_stores_state"],
+        "window": {"env_steps": loop["window_env_steps"], "vector_steps": vec_steps, "chosen": chosen,
+                   "from_env_steps": clock.steps0, "to_env_steps": cfg.train.total_steps,
+                   "updates": updates, "episodes_ended": loop["episodes_total"] - clock.episodes0},
+        "warmup": {"env_steps": clock.steps0, "seconds": round(loop["warmup_s"], 3),
+                   "updates": clock.updates0, "learning_starts": L.learning_starts},
+        "excluded_after_window_s": {**{k: round(v, 3) for k, v in clock.after.items()},
+                                    "all": round(loop["after_window_s"], 3)},
+        "setup_s": round(loop["setup_s"], 3),
+        "cpu_time_over_wall": round((clock.cpu1 - clock.cpu0) / window, 3),
+        "loadavg_at_start": [round(x, 2) for x in clock.load0],
+        "loadavg_at_end": [round(x, 2) for x in os.getloadavg()],
+        "torch_threads": loop["torch_threads"],
+        "obs_shape": loop["obs_shape"],
+        "obs_dtype": loop["obs_dtype"],
+        "num_actions": loop["num_actions"],
+        "stated_config": {"num_envs": cfg.env.num_envs, "batch_size": L.batch_size,
+                          "train_every": L.train_every, "updates_per_round": L.updates_per_round,
+                          "hidden": L.hidden, "conv_channels": L.conv_channels,
+                          "buffer_size": L.buffer_size, "learning_starts": L.learning_starts,
+                          "total_steps": cfg.train.total_steps, "eval_every": cfg.train.eval_every,
+                          "checkpoint_every": cfg.train.checkpoint_every,
+                          "log_every": cfg.log.log_every, "max_cycles": cfg.env.params["max_cycles"]},
+        "config": config_to_dict(cfg),
+        "targets_met": {
+            "everything_else_fraction_max": fractions["everything_else"]
+            <= TARGETS["everything_else_fraction_max"],
+            "replay_over_raw_max": ratio <= TARGETS["replay_over_raw_max"],
+        },
+    }
+
+
+def _cpu_name() -> str:
+    try:
+        with open("/proc/cpuinfo") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or "unknown"
+
+
+def _positive(kind):
+    def parse(text: str):
+        value = kind(text)
+        if value <= 0:
+            raise argparse.ArgumentTypeError(f"expected a positive {kind.__name__}, got {text!r}")
+        return value
+    return parse
+
+
+def _non_negative(text: str) -> int:
+    value = int(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}")
+    return value
+
+
+def _learner_list(text: str) -> list[str]:
+    names = [t.strip() for t in text.split(",") if t.strip()]
+    bad = [n for n in names if n not in LEARNERS]
+    if not names or bad:
+        raise argparse.ArgumentTypeError(f"expected a comma-separated list of {', '.join(LEARNERS)}; "
+                                         f"got {text!r}")
+    return list(dict.fromkeys(names))
+
+
+def _table(report: dict[str, Any]) -> str:
+    lines = [f"python {report['python']}  torch {report['torch']}  numpy {report['numpy']}  "
+             f"{report['platform']}", f"cpu {report['cpu']} x{report['cpu_count']}", "",
+             f"{'learner':<8}{'env steps/s':>12}{'env':>7}{'act':>7}{'update':>8}{'else':>7}{'add':>7}"
+             f"{'upd/s loop':>12}{'call':>8}{'bare':>8}{'replay/raw':>12}{'cpu/wall':>10}"]
+    for kind in report["learners"]:
+        r = report[kind]
+        f = r["fractions"]
+        call = r["loop_update_calls_per_s"] or 0.0
+        lines.append(f"{kind:<8}{r['env_steps_per_s']:>12,.0f}{f['env_step']:>7.1%}{f['act']:>7.1%}"
+                     f"{f['update']:>8.1%}{f['everything_else']:>7.1%}{f['replay_add']:>7.1%}"
+                     f"{r['loop_updates_per_s']:>12.1f}{call:>8.1f}{r['bare_update_per_s']:>8.1f}"
+                     f"{r['replay_over_raw']:>12.3f}{r['cpu_time_over_wall']:>10.2f}")
+    lines += ["", "fractions of the window's wall time; upd/s: per window second, per second inside "
+              "learner.update (call), bare loop", "targets:"]
+    for kind in report["learners"]:
+        met = report[kind]["targets_met"]
+        lines.append(f"  {kind}: everything else <= {TARGETS['everything_else_fraction_max']:.0%}: "
+                     f"{'met' if met['everything_else_fraction_max'] else 'not met'}; replay <= "
+                     f"{TARGETS['replay_over_raw_max']} x raw obs: "
+                     f"{'met' if met['replay_over_raw_max'] else 'not met'}")
+    return "\n".join(lines)
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--steps", type=_positive(int), default=None,
+                        help="measured env steps per learner (default: sized from the bare update rate "
+                             "for about --seconds)")
+    parser.add_argument("--seconds", type=_positive(float), default=DEFAULT_SECONDS,
+                        help=f"target window length when --steps is not given (default "
+                             f"{DEFAULT_SECONDS:g})")
+    parser.add_argument("--warmup-updates", type=_non_negative, default=DEFAULT_WARMUP_UPDATES,
+                        help=f"update rounds after learning starts and before the window (default "
+                             f"{DEFAULT_WARMUP_UPDATES})")
+    parser.add_argument("--num-envs", type=_positive(int), default=8, help="env copies (default 8)")
+    parser.add_argument("--agents", type=_positive(int), default=5, help="agents per copy (default 5)")
+    parser.add_argument("--view-radius", type=_positive(int), default=7, help="view radius (default 7)")
+    parser.add_argument("--max-cycles", type=_positive(int), default=None,
+                        help="episode length (default: the game's)")
+    parser.add_argument("--bare-seconds", type=_positive(float), default=10.0,
+                        help="time budget of the bare update loop per learner (default 10)")
+    parser.add_argument("--learners", type=_learner_list, default=list(LEARNERS),
+                        help="comma-separated learners (default idqn,maddpg)")
+    parser.add_argument("--seed", type=int, default=0, help="seed of the run and of the bare batch")
+    parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
+    args = parser.parse_args(argv)
+
+    import numpy as np
+    import torch
+
+    from envs.errors import EnvError
+    from marl_core.errors import ConfigError
+    from marl_core.team_env import make_team_env
+
+    try:  # a bad option fails here, before any measurement (e.g. more agents than spawn points)
+        cfg = make_config(LEARNERS[0], args.num_envs, args.agents, args.view_radius, args.max_cycles,
+                          args.seed)
+        make_team_env(cfg.env.name, cfg.env.params, 1, args.seed, with_state=False).close()
+    except (ConfigError, EnvError) as err:
+        parser.error(str(err))
+    results = {kind: bench_learner(kind, args) for kind in args.learners}
+    report = {
+        "python": platform.python_version(),
+        "torch": torch.__version__,
+        "numpy": np.__version__,
+        "platform": platform.platform(),
+        "cpu": _cpu_name(),
+        "cpu_count": os.cpu_count(),
+        "torch_threads": _torch_threads(),
+        "thread_env": {v: os.environ.get(v) for v in _THREAD_VARS},
+        "game": GAME,
+        "layout": LAYOUT,
+        "seed": args.seed,
+        "learners": args.learners,
+        "targets": TARGETS,
+        "targets_met": {k: results[k]["targets_met"] for k in results},
+        **results,
+    }
+    print(json.dumps(report, indent=2) if args.json else _table(report))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
