@@ -120,7 +120,13 @@ class _Progress:
         return self
 
     def _start(self) -> None:  # the bar appears with the first step, so an early error prints nothing else
-        from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+        from rich.progress import (
+            BarColumn,
+            MofNCompleteColumn,
+            Progress,
+            TextColumn,
+            TimeRemainingColumn,
+        )
 
         self.bar = Progress(TextColumn("[bold]train"), BarColumn(), MofNCompleteColumn(),
                             TextColumn("{task.fields[rate]} steps/s"), TimeRemainingColumn(),
