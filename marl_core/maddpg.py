@@ -76,9 +76,11 @@ class CentralCritic(nn.Module):
     def own_values(self, x: torch.Tensor, joints: torch.Tensor) -> torch.Tensor:
         """Agent i's value under its own joint action ``joints[i]``: (N, K, N*A) -> (K, N)."""
         N, K = joints.shape[:2]
-        if self.shared:
-            xs = x.unsqueeze(0).expand(N, *x.shape).reshape(N * K, *x.shape[1:])
-            q = self._run(self.nets[0], xs, joints.reshape(N * K, -1)).reshape(N, K, N)
+        if self.shared:  # encode x once; only the actions differ between the N blocks
+            net = self.nets[0]
+            h = net["enc"](x)
+            hs = h.unsqueeze(0).expand(N, *h.shape).reshape(N * K, -1)
+            q = net["mlp"](torch.cat([hs, joints.reshape(N * K, -1)], dim=1)).reshape(N, K, N)
             return q.diagonal(dim1=0, dim2=2)  # (K, N): block i, output i
         return torch.cat([self._run(n, x, joints[i]) for i, n in enumerate(self.nets)], dim=1)
 

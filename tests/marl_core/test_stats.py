@@ -1,0 +1,352 @@
+"""The evaluation statistics of ``marl_core.ablation.stats``.
+
+Every expected value names its source beside it: Agarwal et al. 2021 / REFERENCES.md, a named worked example,
+"hand-computed from the formula", or the scipy / statsmodels function the result is held against.
+"""
+
+import math
+import subprocess
+import sys
+import warnings
+
+import numpy as np
+import pytest
+import scipy.stats
+from statsmodels.stats.multitest import multipletests
+
+from marl_core.ablation.stats import (
+    compare,
+    holm,
+    iqm,
+    mannwhitney_p,
+    min_seeds_warning,
+    probability_of_improvement,
+    stratified_bootstrap_ci,
+    summarize,
+    welch_p,
+)
+from marl_core.errors import ConfigError
+
+
+# ------------------------------------------------------------------------------------------------------ IQM
+def test_iqm_worked_example():
+    x = [5, 8, 4, 38, 8, 6, 9, 7, 7, 3, 1, 6]
+    # 6.5: Wikipedia "Interquartile mean" worked example, from memory (REFERENCES.md, Agarwal et al. 2021 section);
+    # hand-check: sorted middle six are 5, 6, 6, 7, 7, 8 -> 39 / 6.
+    assert iqm(x) == pytest.approx(6.5)
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 5, 7, 8, 11, 12, 13, 50, 101])
+def test_iqm_equals_scipy_trim_mean(n):
+    x = np.random.default_rng(n).standard_t(df=3, size=n)
+    assert iqm(x) == pytest.approx(scipy.stats.trim_mean(x, 0.25))  # scipy.stats.trim_mean(x, 0.25)
+
+
+def test_iqm_along_axis_equals_scipy_trim_mean():
+    x = np.random.default_rng(1).normal(size=(6, 9))
+    np.testing.assert_allclose(iqm(x, axis=-1), scipy.stats.trim_mean(x, 0.25, axis=-1))  # scipy trim_mean
+    np.testing.assert_allclose(iqm(x, axis=0), scipy.stats.trim_mean(x, 0.25, axis=0))  # scipy trim_mean
+
+
+def test_iqm_drops_nans_and_empty_is_nan():
+    assert iqm([np.nan, 1.0, 2.0, 3.0, np.nan, 4.0]) == pytest.approx(2.5)  # hand-computed: trim 1 each end of 1..4
+    assert math.isnan(iqm([]))  # documented convention
+    assert math.isnan(iqm([np.nan]))  # documented convention
+
+
+# ---------------------------------------------------------------------------------------------------- Holm
+HOLM_CASES = {
+    "plain": [0.01, 0.04, 0.03, 0.005],
+    "ties": [0.02, 0.02, 0.02, 0.5, 0.01],
+    "near_one": [0.9, 0.95, 0.99, 0.999, 0.4],
+    "not_monotone_after_scaling": [0.001, 0.011, 0.012, 0.2, 0.0105],
+    "single": [0.3],
+    "zeros_and_ones": [0.0, 1.0, 0.0, 0.5],
+}
+
+
+@pytest.mark.parametrize("p", list(HOLM_CASES.values()), ids=list(HOLM_CASES))
+def test_holm_matches_statsmodels(p):
+    expected = multipletests(p, method="holm")[1]  # statsmodels.stats.multitest.multipletests(method="holm")
+    np.testing.assert_allclose(holm(p), expected, rtol=0, atol=1e-12)
+
+
+def test_holm_hand_computed():
+    # Holm 1979 step-down, hand-computed: sorted 0.01, 0.02, 0.03 -> 0.03, 0.04, 0.03 -> cummax 0.03, 0.04, 0.04.
+    np.testing.assert_allclose(holm([0.03, 0.01, 0.02]), [0.04, 0.03, 0.04])
+
+
+def test_holm_passes_nans_through_and_does_not_count_them():
+    p = [0.01, np.nan, 0.04, np.nan, 0.03]
+    out = holm(p)
+    assert np.isnan(out[[1, 3]]).all()  # documented convention: NaN in, NaN out
+    expected = multipletests([0.01, 0.04, 0.03], method="holm")[1]  # statsmodels, with m = 3 (NaNs not counted)
+    np.testing.assert_allclose(out[[0, 2, 4]], expected)
+
+
+def test_holm_empty():
+    assert holm([]).shape == (0,)  # documented convention
+
+
+def test_holm_rejects_p_above_one():
+    with pytest.raises(ConfigError, match=r"pvalues must lie in \[0, 1\].*1\.5.*index 1"):
+        holm([0.1, 1.5])
+
+
+def test_holm_rejects_2d():
+    with pytest.raises(ConfigError, match=r"pvalues must be 1-D.*\(2, 2\)"):
+        holm([[0.1, 0.2], [0.3, 0.4]])
+
+
+# ------------------------------------------------------------------------ Mann–Whitney, Welch, P(improvement)
+MW_CASES = {
+    "separated_small": ([1.0, 2.0, 3.0], [4.0, 5.0, 6.0]),
+    "overlap": ([0.1, 0.5, 0.9, 1.3], [0.2, 0.4, 0.6, 0.8, 1.0]),
+    "ties": ([1.0, 1.0, 2.0, 3.0], [1.0, 2.0, 2.0]),
+    "larger": (list(np.random.default_rng(3).normal(0.3, 1.0, 15)), list(np.random.default_rng(4).normal(size=12))),
+}
+
+
+@pytest.mark.parametrize("a,b", list(MW_CASES.values()), ids=list(MW_CASES))
+def test_mannwhitney_p_matches_scipy(a, b):
+    expected = scipy.stats.mannwhitneyu(a, b, alternative="two-sided").pvalue  # scipy.stats.mannwhitneyu
+    assert mannwhitney_p(a, b) == pytest.approx(expected, rel=1e-12)
+
+
+def test_mannwhitney_p_smallest_at_three_seeds():
+    assert mannwhitney_p([1, 2, 3], [4, 5, 6]) == pytest.approx(0.1)  # exact two-sided: 2 / C(6, 3) = 0.1
+
+
+def test_mannwhitney_p_empty_is_nan():
+    assert math.isnan(mannwhitney_p([], [1.0, 2.0]))  # documented convention
+    assert math.isnan(mannwhitney_p([1.0, np.nan], [np.nan]))  # documented convention: NaNs dropped first
+
+
+@pytest.mark.parametrize("a,b", list(MW_CASES.values()), ids=list(MW_CASES))
+def test_welch_p_matches_scipy(a, b):
+    expected = scipy.stats.ttest_ind(a, b, equal_var=False).pvalue  # scipy.stats.ttest_ind(equal_var=False)
+    assert welch_p(a, b) == pytest.approx(expected, rel=1e-12)
+
+
+def test_welch_p_degenerate_cases():
+    assert math.isnan(welch_p([1.0], [2.0, 3.0]))  # documented: fewer than 2 runs on a side
+    assert math.isnan(welch_p([1.0, np.nan, 2.0], [np.nan, 3.0]))  # documented: NaNs dropped, then < 2 runs
+    assert math.isnan(welch_p([2.0, 2.0], [2.0, 2.0, 2.0]))  # documented: both constant, equal means (0 / 0)
+    assert welch_p([1.0, 1.0], [2.0, 2.0]) == 0.0  # documented: both constant, different means; scipy gives 0.0
+    with warnings.catch_warnings():  # scipy warns about precision loss on an exactly constant side
+        warnings.simplefilter("ignore", RuntimeWarning)
+        one_constant = scipy.stats.ttest_ind([1.0, 1.0, 1.0], [2.0, 3.0, 2.5], equal_var=False).pvalue  # scipy
+    with warnings.catch_warnings():  # ours does not warn: a constant side is fine for Welch
+        warnings.simplefilter("error")
+        assert welch_p([1.0, 1.0, 1.0], [2.0, 3.0, 2.5]) == pytest.approx(one_constant)
+
+
+@pytest.mark.parametrize("x,y,expected", [
+    ([1, 2, 3], [0, 0, 0], 1.0),  # hand-computed: all 9 pairs won
+    ([0, 0, 0], [1, 2, 3], 0.0),  # hand-computed: all 9 pairs lost
+    ([1, 2, 3], [1, 2, 3], 0.5),  # hand-computed: identical samples, wins and losses balance
+    ([1, 3], [2], 0.5),  # hand-computed: one pair won (3 > 2), one lost (1 < 2)
+    ([1, 2], [2, 2], 0.25),  # hand-computed: (1,2),(1,2) lost, (2,2),(2,2) ties -> (0 + 2 * 0.5) / 4
+], ids=["all_better", "all_worse", "identical", "split", "ties"])
+def test_probability_of_improvement_hand_computed(x, y, expected):
+    assert probability_of_improvement(x, y) == pytest.approx(expected)
+
+
+@pytest.mark.parametrize("x,y", list(MW_CASES.values()), ids=list(MW_CASES))
+def test_probability_of_improvement_is_scipy_u_over_nm(x, y):
+    u = scipy.stats.mannwhitneyu(x, y, alternative="two-sided").statistic  # scipy U of the first sample
+    assert probability_of_improvement(x, y) == pytest.approx(u / (len(x) * len(y)))  # Agarwal et al. 2021
+
+
+def test_probability_of_improvement_empty_is_nan():
+    assert math.isnan(probability_of_improvement([], [1.0]))  # documented convention
+    assert math.isnan(probability_of_improvement([1.0], [np.nan]))  # documented convention
+
+
+# ------------------------------------------------------------------------------------------------ bootstrap
+def test_bootstrap_ci_coverage_of_the_mean():
+    # Property test: nominal 95% percentile CI of the mean of 20 N(0, 1) draws, 1000 seeded repetitions.
+    # Expected coverage ~0.95 (Agarwal et al. 2021 percentile bootstrap); the percentile bootstrap
+    # under-covers slightly at small n (plug-in sd and normal-like quantiles: P(|T_19| < 1.96 sqrt(19/20))
+    # = 0.929 from scipy.stats.t), so the tolerance is [0.90, 0.98] (Monte Carlo sd ~0.008 at 1000).
+    rng = np.random.default_rng(2021)
+    hits = 0
+    for rep in range(1000):
+        low, high = stratified_bootstrap_ci(rng.normal(size=20), np.mean, reps=2000, seed=rep)
+        hits += low <= 0.0 <= high
+    assert 0.90 <= hits / 1000 <= 0.98
+
+
+def test_stratified_bootstrap_ci_coverage_of_the_pooled_mean():
+    # Property test: strata N(0, 1) x 12 runs and N(3, 2) x 20 runs; the pooled mean of a fixed design has
+    # expectation (12 * 0 + 20 * 3) / 32 (hand-computed). Nominal 95% (Agarwal et al. 2021 stratified
+    # bootstrap); tolerance [0.90, 0.98] as above, 1000 seeded repetitions.
+    rng = np.random.default_rng(7)
+    truth = (12 * 0.0 + 20 * 3.0) / 32
+    hits = 0
+    for rep in range(1000):
+        scores = [rng.normal(0.0, 1.0, size=12), rng.normal(3.0, 2.0, size=20)]
+        low, high = stratified_bootstrap_ci(scores, np.mean, reps=2000, seed=rep)
+        hits += low <= truth <= high
+    assert 0.90 <= hits / 1000 <= 0.98
+
+
+def test_stratified_resampling_keeps_strata_sizes():
+    # Each stratum is resampled within itself: with strata {0, 0, 0} and {10}, every resample pools three
+    # zeros and one ten, so the mean is always 2.5 (hand-computed) and the interval collapses.
+    low, high = stratified_bootstrap_ci([np.zeros(3), np.array([10.0])], np.mean, reps=200)
+    assert low == pytest.approx(2.5) and high == pytest.approx(2.5)
+
+
+def test_bootstrap_single_run_is_the_run():
+    assert stratified_bootstrap_ci([4.2], np.mean) == (4.2, 4.2)  # documented: a single run x gives (x, x)
+    assert stratified_bootstrap_ci(np.array([np.nan, 4.2]), iqm) == (4.2, 4.2)  # documented: NaNs dropped first
+
+
+def test_bootstrap_empty_is_nan():
+    low, high = stratified_bootstrap_ci([np.nan, np.nan], np.mean)  # documented convention
+    assert math.isnan(low) and math.isnan(high)
+
+
+def test_bootstrap_is_seeded_and_leaves_global_rng_alone():
+    x = np.random.default_rng(0).normal(size=10)
+    state = np.random.get_state()[1].copy()  # noqa: NPY002 (checking the legacy global RNG)
+    first = stratified_bootstrap_ci(x, iqm, seed=5)
+    assert stratified_bootstrap_ci(x, iqm, seed=5) == first
+    assert stratified_bootstrap_ci(x, iqm, seed=6) != first
+    assert (np.random.get_state()[1] == state).all()  # noqa: NPY002
+    low, high = first
+    assert low <= iqm(x) <= high
+
+
+def test_bootstrap_rejects_bad_confidence():
+    with pytest.raises(ConfigError, match="confidence must be a number strictly between 0 and 1, got 95"):
+        stratified_bootstrap_ci([1.0, 2.0], np.mean, confidence=95)
+
+
+def test_bootstrap_rejects_bad_reps():
+    with pytest.raises(ConfigError, match="reps must be an integer >= 1.*got 0"):
+        stratified_bootstrap_ci([1.0, 2.0], np.mean, reps=0)
+
+
+def test_bootstrap_rejects_bad_seed():
+    with pytest.raises(ConfigError, match="seed must be an integer >= 0 or None, got -1"):
+        stratified_bootstrap_ci([1.0, 2.0], np.mean, seed=-1)
+
+
+def test_bootstrap_rejects_2d_array():
+    with pytest.raises(ConfigError, match=r"scores must be a 1-D array.*shape \(2, 3\)"):
+        stratified_bootstrap_ci(np.zeros((2, 3)), np.mean)
+
+
+def test_bootstrap_rejects_mixed_strata():
+    with pytest.raises(ConfigError, match="mix of numbers and arrays"):
+        stratified_bootstrap_ci([1.0, [2.0, 3.0]], np.mean)
+
+
+def test_bootstrap_rejects_non_reducing_statistic():
+    with pytest.raises(ConfigError, match=r"statistic must reduce the last axis.*returned shape \(\)"):
+        stratified_bootstrap_ci([1.0, 2.0, 3.0], lambda s, axis: float(np.mean(s)))
+
+
+def test_bootstrap_rejects_non_callable_statistic():
+    with pytest.raises(ConfigError, match="statistic must be callable"):
+        stratified_bootstrap_ci([1.0, 2.0], "mean")
+
+
+# ------------------------------------------------------------------------------------------------ summarize
+def test_summarize():
+    x = [5, 8, 4, 38, 8, 6, 9, 7, 7, 3, 1, 6, np.nan]
+    s = summarize(x, reps=500)
+    assert set(s) == {"n", "mean", "mean_ci", "iqm", "iqm_ci", "std"}
+    assert s["n"] == 12  # hand-counted: the NaN is dropped
+    assert s["mean"] == pytest.approx(102 / 12)  # hand-computed: sum is 102
+    assert s["iqm"] == pytest.approx(6.5)  # Wikipedia "Interquartile mean", from memory (REFERENCES.md)
+    assert s["std"] == pytest.approx(np.std(np.array(x[:-1], dtype=float), ddof=1))  # numpy std, ddof=1
+    assert s["mean_ci"][0] <= s["mean"] <= s["mean_ci"][1]
+    assert s["iqm_ci"][0] <= s["iqm"] <= s["iqm_ci"][1]
+    assert s["iqm_ci"][1] - s["iqm_ci"][0] < s["mean_ci"][1] - s["mean_ci"][0]  # the outlier 38 widens the mean's
+
+
+def test_summarize_empty():
+    s = summarize([])
+    assert s["n"] == 0 and math.isnan(s["mean"]) and math.isnan(s["iqm_ci"][0])  # documented convention
+
+
+# -------------------------------------------------------------------------------------------------- compare
+def test_compare_clear_difference():
+    arm = [10.0, 11.0, 12.0, 10.5, 11.5, 12.5, 10.2, 11.8]
+    base = [0.0, 1.0, 2.0, 0.5, 1.5, 2.5, 0.2, 1.8]
+    out = compare(arm, base)
+    assert out["test"] == "mannwhitney"
+    assert out["difference"] == pytest.approx(10.0)  # hand-computed: arm is base + 10 element-wise
+    low, high = out["difference_ci"]
+    assert 8.0 < low <= 10.0 <= high < 12.0
+    assert out["prob_improvement"] == 1.0  # hand-computed: every arm run beats every baseline run
+    assert out["p_value"] == pytest.approx(2 / math.comb(16, 8))  # exact MW, most extreme split: 2 / C(16, 8)
+    assert out["p_value"] < 0.001
+    assert out["warning"] is None
+    welch = compare(arm, base, test="welch")
+    assert welch["test"] == "welch"
+    assert welch["p_value"] == pytest.approx(scipy.stats.ttest_ind(arm, base, equal_var=False).pvalue)  # scipy
+    assert welch["p_value"] < 1e-6
+
+
+def test_compare_few_seeds_carries_warning():
+    out = compare([3.0, 4.0, 5.0], [0.0, 1.0, 2.0])
+    assert out["p_value"] == pytest.approx(0.1)  # exact MW at n = m = 3: 2 / C(6, 3)
+    assert "0.1" in out["warning"]
+
+
+def test_compare_empty_side():
+    out = compare([], [1.0, 2.0])
+    assert math.isnan(out["difference"]) and math.isnan(out["p_value"])  # documented convention
+    assert "No runs" in out["warning"]
+
+
+def test_compare_rejects_unknown_test():
+    with pytest.raises(ConfigError, match="test must be one of 'mannwhitney', 'welch', got 'ttest'"):
+        compare([1.0, 2.0], [3.0, 4.0], test="ttest")
+
+
+# ------------------------------------------------------------------------------------------ seed warnings
+def test_min_seeds_warning_mannwhitney_three_seeds():
+    msg = min_seeds_warning(3, 3, "mannwhitney")
+    assert msg is not None
+    assert "0.1" in msg and "2 / C(6, 3)" in msg  # exact two-sided bound 2 / C(6, 3) = 0.1
+    assert "very wide" in msg  # n < 5: IQM / bootstrap note
+
+
+def test_min_seeds_warning_mannwhitney_ten_seeds():
+    assert 2 / math.comb(20, 10) == pytest.approx(1.0825e-5, rel=1e-3)  # hand-computed: C(20, 10) = 184756
+    assert min_seeds_warning(10, 10, "mannwhitney") is None
+
+
+def test_min_seeds_warning_mannwhitney_four_seeds_only_notes_wide_intervals():
+    msg = min_seeds_warning(4, 4, "mannwhitney")  # 2 / C(8, 4) = 0.029 < 0.05 (hand-computed)
+    assert msg is not None and "Mann–Whitney" not in msg and "very wide" in msg
+
+
+def test_min_seeds_warning_welch():
+    msg = min_seeds_warning(4, 6, "welch")
+    assert msg is not None and "common practice, no source" in msg  # 5 per arm: common practice (no source)
+    assert min_seeds_warning(5, 5, "welch") is None
+    assert "undefined" in min_seeds_warning(1, 5, "welch")  # Welch needs 2 runs per side
+
+
+def test_min_seeds_warning_rejects_negative_count():
+    with pytest.raises(ConfigError, match="n_base must be an integer >= 0.*got -2"):
+        min_seeds_warning(3, -2, "welch")
+
+
+def test_min_seeds_warning_rejects_unknown_test():
+    with pytest.raises(ConfigError, match="test must be one of"):
+        min_seeds_warning(3, 3, "kruskal")
+
+
+# ------------------------------------------------------------------------------------------------- imports
+def test_stats_module_does_not_import_torch_or_matplotlib():
+    code = ("import sys, marl_core.ablation.stats; "
+            "print(any(m.split('.')[0] in ('torch', 'matplotlib', 'scipy') for m in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"  # documented: numpy only at import, scipy lazily
