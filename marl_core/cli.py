@@ -4,6 +4,9 @@ Commands:
     marl-core train CONFIG --out RUN_DIR [--set key.path=value ...] [--quiet]
     marl-core train --resume RUN_DIR [--quiet]
     marl-core evaluate RUN_DIR [--episodes N] [--json] [--gif PATH]
+    marl-core ablate SPEC --out SWEEP_DIR [--workers N] [--backend local|ray] [--address ADDR] [--retry-failed]
+    marl-core status SWEEP_DIR [--json]
+    marl-core report SWEEP_DIR [--test mannwhitney|welch]
     marl-core envs [--json]
     marl-core demo [--out DIR] [--seed N] [--agents N] [--steps N] [--no-gif]
 
@@ -54,6 +57,20 @@ def _parser() -> argparse.ArgumentParser:
     v.add_argument("--episodes", type=int, help="episodes to play (default: the run's train.eval_episodes)")
     v.add_argument("--json", action="store_true", help="print JSON (same metric keys as summary.json)")
     v.add_argument("--gif", metavar="PATH", help="write a GIF of the first episode")
+    a = sub.add_parser("ablate", help="run a sweep (a grid of runs over seeds) into a sweep directory")
+    a.add_argument("spec", help="sweep spec YAML (see configs/ablations/)")
+    a.add_argument("--out", required=True, help="sweep directory (rerun the same command to continue)")
+    a.add_argument("--workers", type=int, help="runs at once (default: the number of CPUs)")
+    a.add_argument("--backend", default="local", help="local (process pool, default) or ray")
+    a.add_argument("--address", help="ray: address of an existing cluster (default: start a local one)")
+    a.add_argument("--retry-failed", action="store_true", help="run failed runs again")
+    a.add_argument("--quiet", action="store_true", help="no progress display")
+    st = sub.add_parser("status", help="a table of every run of a sweep")
+    st.add_argument("sweep_dir")
+    st.add_argument("--json", action="store_true")
+    rp = sub.add_parser("report", help="write SWEEP_DIR/report/: report.md, runs.csv, figures")
+    rp.add_argument("sweep_dir")
+    rp.add_argument("--test", default="mannwhitney", help="mannwhitney (default) or welch")
     e = sub.add_parser("envs", help="list the games and their parameters")
     e.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return p
@@ -195,10 +212,64 @@ def _evaluate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _ablate(args: argparse.Namespace) -> int:
+    from marl_core.ablation.runner import ablate
+
+    shown = {"t": 0.0}
+
+    def progress(counts: dict, eta: float | None) -> None:
+        import time
+
+        now = time.monotonic()
+        total = sum(counts.values())
+        if args.quiet or (now - shown["t"] < 2.0 and counts.get("running", 0)):
+            return
+        shown["t"] = now
+        left = "" if eta is None else f"  ETA {eta / 60:.1f} min"
+        print(f"runs {total}: done {counts.get('done', 0)}, running {counts.get('running', 0)}, "
+              f"failed {counts.get('failed', 0)}, pending {counts.get('pending', 0)}{left}", flush=True)
+
+    counts = ablate(args.spec, args.out, workers=args.workers, backend=args.backend, address=args.address,
+                    retry_failed=args.retry_failed, progress=progress)
+    print(f"sweep: {args.out}  done {counts.get('done', 0)}, failed {counts.get('failed', 0)}")
+    if counts.get("failed"):
+        print(f"failed runs: marl-core status {args.out}; rerun them with --retry-failed")
+    print(f"report: marl-core report {args.out}   TensorBoard HParams: tensorboard --logdir {args.out}/runs")
+    return 0 if not counts.get("failed") else 1
+
+
+def _status(args: argparse.Namespace) -> int:
+    from marl_core.ablation.runner import HEADLINE, sweep_status
+
+    rows = sweep_status(args.sweep_dir)
+    if args.json:
+        print(json.dumps(rows, indent=2))
+        return 0
+    width = max([len(r["arm"]) for r in rows] + [3])
+    print(f"{'arm':<{width}}  {'seed':>4}  {'state':<8} {'duration':>9}  {HEADLINE:>10}  run")
+    for r in rows:
+        dur = "" if r["duration"] is None else f"{r['duration']:.0f} s"
+        head = "" if r[HEADLINE] is None else f"{r[HEADLINE]:.3f}"
+        line = f"{r['arm']:<{width}}  {r['seed']:>4}  {r['state']:<8} {dur:>9}  {head:>10}  {r['run_id']}"
+        print(line + (f"  {r['error']}" if r["error"] and r["state"] == "failed" else ""))
+    return 0
+
+
+def _report(args: argparse.Namespace) -> int:
+    from marl_core.ablation.report import write_report
+
+    if args.test not in ("mannwhitney", "welch"):
+        raise UsageError(f"--test = {args.test!r} is not allowed; expected mannwhitney or welch")
+    out = write_report(args.sweep_dir, test=args.test)
+    print(f"report: {out / 'report.md'}  runs: {out / 'runs.csv'}  figures: {out / 'figures'}")
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     try:
         args = _parser().parse_args(argv)
-        return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate}[args.command](args)
+        return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate, "ablate": _ablate,
+                "status": _status, "report": _report}[args.command](args)
     except (UsageError, EnvError, MarlError) as err:
         print(f"marl-core: error: {err}", file=sys.stderr)
         return 2

@@ -1,0 +1,854 @@
+"""The sweep report: tables, comparisons with the baseline, figures and a CSV of every run, from files only.
+
+``write_report(sweep_dir)`` reads a sweep directory written by :func:`marl_core.ablation.runner.ablate`
+and writes ``sweep_dir/report/``::
+
+    report.md                     header (test, bootstrap, correction, warnings, failed runs), Table 1 per
+                                  metric (per-arm mean and IQM with 95% CIs, the random team's mean),
+                                  Table 2 per metric (each arm vs the baseline), links to the figures
+    runs.csv                      one row per run of the ledger, every state
+    figures/curve_<metric>.png    learning curves: mean over seeds, 95% bootstrap band, random team dashed
+    figures/bars_<metric>.png     IQM per arm with 95% stratified bootstrap CI, the baseline hatched
+    figures/axis_<key>_<metric>.png  for every numeric override key: the metric against its value
+
+What is read: ``ledger.sqlite`` (through :class:`~marl_core.ablation.ledger.Ledger`), and for each done run
+``runs/<run_id>/summary.json`` (its final metrics; the ledger's copy when the file is missing),
+``metrics.jsonl`` (the curves) and ``config.yaml`` (the value of an override key for an arm that does not set
+it, and the game and learner names in the header). Nothing is trained or loaded: this module never imports
+torch, and matplotlib is imported only when the figures are drawn (with the Agg canvas, no pyplot and no
+global backend change).
+
+Statistics (all from :mod:`marl_core.ablation.stats`, Agarwal et al. 2021): per arm and metric the mean and
+interquartile mean with 95% percentile bootstrap intervals that resample seeds within the arm (one stratum
+per arm: an arm is one task); against the baseline, the difference of means with a bootstrap interval, a
+two-sided Mann–Whitney U test by default (no normality assumption; ``test="welch"`` for Welch's t-test),
+Holm's correction and the probability of improvement. The Holm family is, by default, one metric's
+comparisons of every arm with the baseline (``holm_family="metric"``); ``"all"`` corrects over every
+arm × metric comparison at once. NaN values (sustainability when no agent scores, equality when returns
+sum to <= 0) are dropped and counted.
+
+:func:`report_summary` returns every number the report shows as a dict; :func:`write_report` renders that
+dict, so the tables, figures and tests read one code path.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import numbers
+import os
+import re
+import tempfile
+import warnings
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import yaml
+
+from envs.metrics import METRIC_NAMES
+from marl_core.ablation import stats
+from marl_core.ablation.ledger import Ledger
+from marl_core.errors import ConfigError, MissingExtraError, RunDirError
+
+__all__ = ["write_report", "report_summary", "METRICS", "HOLM_FAMILIES", "FEW_SEEDS", "CONFIDENCE"]
+
+#: The metrics of the tables and figures, in display order; every one is higher-is-better.
+METRICS: tuple[str, ...] = ("return_mean", *METRIC_NAMES)
+HIGHER_IS_BETTER: dict[str, bool] = dict.fromkeys(METRICS, True)
+#: ``holm_family`` values: one family per metric, or one family of every arm x metric comparison.
+HOLM_FAMILIES: tuple[str, ...] = ("metric", "all")
+#: Below this many done seeds an arm is flagged in the warnings (common practice (no source)).
+FEW_SEEDS = 5
+CONFIDENCE = 0.95
+DPI = 110
+
+_SEED_KEY = "train.seed"
+_MISSING = object()
+_DESCRIPTIONS = {
+    "return_mean": "mean episode return per agent (evaluation, exploration off)",
+    "efficiency": "sum of all agents' returns per time step",
+    "equality": "1 − Gini coefficient of the agents' returns (NaN when returns differ and sum to ≤ 0)",
+    "sustainability": "mean time step at which agents receive positive rewards (NaN when nobody scores)",
+    "peace": "mean number of agents not tagged out per time step, in [0, N]",
+}
+_TEST_NAMES = {"mannwhitney": "Mann–Whitney U", "welch": "Welch's t"}
+
+
+# ================================================================================== argument checks
+def _check_args(test: Any, reps: Any, seed: Any, holm_family: Any) -> None:
+    if test not in stats.TESTS:
+        raise ConfigError(f"test = {test!r} is not allowed; expected one of {', '.join(stats.TESTS)}")
+    if isinstance(reps, bool) or not isinstance(reps, numbers.Integral) or reps < 1:
+        raise ConfigError(f"reps = {reps!r} is not allowed; expected an integer >= 1 (bootstrap resamples)")
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0):
+        raise ConfigError(f"seed = {seed!r} is not allowed; expected an integer >= 0 or None")
+    if holm_family not in HOLM_FAMILIES:
+        raise ConfigError(f"holm_family = {holm_family!r} is not allowed; expected one of "
+                          f"{', '.join(HOLM_FAMILIES)}")
+
+
+# ================================================================================== reading files
+def _float(x: Any) -> float:
+    """A number as a float; None, text and other values as NaN (JSON writes NaN as null)."""
+    if isinstance(x, bool) or not isinstance(x, numbers.Real):
+        return math.nan
+    return float(x)
+
+
+def _last_line(text: str | None) -> str | None:
+    lines = [line.strip() for line in (text or "").strip().splitlines() if line.strip()]
+    return lines[-1] if lines else None
+
+
+def _read_json(path: Path, problems: list[str]) -> dict[str, Any] | None:
+    if not path.is_file():
+        return None
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, ValueError) as err:
+        problems.append(f"cannot read `{path}`: {' '.join(str(err).split())}")
+        return None
+    return data if isinstance(data, dict) else None
+
+
+def _read_yaml(path: Path, problems: list[str]) -> dict[str, Any] | None:
+    if not path.is_file():
+        return None
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, yaml.YAMLError) as err:
+        problems.append(f"cannot read `{path}`: {' '.join(str(err).split())}")
+        return None
+    return data if isinstance(data, dict) else None
+
+
+def _read_curve(path: Path, problems: list[str]) -> dict[int, dict[str, Any]] | None:
+    """``metrics.jsonl`` as env_steps -> row (a later line for the same step wins); None if absent."""
+    if not path.is_file():
+        return None
+    out: dict[int, dict[str, Any]] = {}
+    try:
+        lines = path.read_text(encoding="utf-8").splitlines()
+    except (OSError, UnicodeDecodeError) as err:
+        problems.append(f"cannot read `{path}`: {' '.join(str(err).split())}")
+        return None
+    bad = 0
+    for line in lines:
+        if not line.strip():
+            continue
+        try:
+            row = json.loads(line)
+            step = int(row["env_steps"])
+        except (ValueError, KeyError, TypeError):
+            bad += 1  # e.g. a line cut short by a crash
+            continue
+        out[step] = row
+    if bad:
+        problems.append(f"`{path}`: {bad} unreadable line(s) skipped")
+    return out
+
+
+def _dig(data: Any, key: str) -> Any:
+    """The value at a dotted key of a nested mapping, or ``_MISSING``."""
+    node = data
+    for part in key.split("."):
+        if not isinstance(node, dict) or part not in node:
+            return _MISSING
+        node = node[part]
+    return node
+
+
+def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
+    """One ledger row with its run directory's files read (final metrics, curve, config)."""
+    run_id = row["run_id"]
+    run_dir = sweep / "runs" / run_id
+    if not run_dir.is_dir() and row.get("run_dir"):
+        run_dir = Path(row["run_dir"])
+    overrides = {k: v for k, v in (row.get("overrides") or {}).items() if k != _SEED_KEY}
+    rec: dict[str, Any] = {
+        "run_id": run_id, "arm": row["arm"], "seed": row["seed"], "state": row["state"],
+        "duration": row.get("duration"), "overrides": overrides, "run_dir": str(run_dir),
+        "error": _last_line(row.get("error")), "env_steps": None, "episodes": None,
+        **dict.fromkeys(METRICS, math.nan), "returns": {}, "random": dict.fromkeys(METRICS, math.nan),
+        "source": None, "config": None, "curve": None, "problems": [],
+    }
+    if row["state"] != "done":
+        return rec
+    problems = rec["problems"]
+    summary = _read_json(run_dir / "summary.json", problems)
+    if summary is not None:
+        rec["source"] = "summary.json"
+    elif isinstance(row.get("metrics"), dict):
+        summary, rec["source"] = row["metrics"], "ledger"
+        problems.append(f"run `{run_id}` ({row['arm']}, seed {row['seed']}) is done but has no readable "
+                        "summary.json; its final metrics come from the ledger")
+    else:
+        summary = {}
+        problems.append(f"run `{run_id}` ({row['arm']}, seed {row['seed']}) is done but has neither "
+                        "summary.json nor metrics in the ledger; it counts as NaN")
+    for key in ("env_steps", "episodes"):
+        value = summary.get(key)
+        rec[key] = int(value) if isinstance(value, numbers.Real) and not isinstance(value, bool) else None
+    for m in METRICS:
+        rec[m] = _float(summary.get(m))
+    returns = summary.get("returns")
+    if isinstance(returns, dict):
+        rec["returns"] = {str(a): _float(v) for a, v in returns.items()}
+    if not math.isfinite(rec["return_mean"]) and rec["returns"]:  # older summaries: derive it
+        rec["return_mean"] = float(np.mean(list(rec["returns"].values())))
+    random = summary.get("random")
+    if isinstance(random, dict):
+        rec["random"] = {m: _float(random.get(m)) for m in METRICS}
+    rec["config"] = _read_yaml(run_dir / "config.yaml", problems)
+    rec["curve"] = _read_curve(run_dir / "metrics.jsonl", problems)
+    return rec
+
+
+def _load(sweep_dir: str | os.PathLike) -> dict[str, Any]:
+    sweep = Path(sweep_dir)
+    ledger_path = sweep / "ledger.sqlite"
+    if not ledger_path.is_file():
+        raise RunDirError(f"'{sweep}' is not a sweep directory (no ledger.sqlite)")
+    with Ledger(ledger_path) as ledger:
+        rows = ledger.rows()
+        baseline = ledger.get_meta("baseline")
+        spec_text = ledger.get_meta("spec")
+    try:
+        spec = json.loads(spec_text) if spec_text else None
+    except ValueError:
+        spec = None
+    return {"sweep_dir": str(sweep), "baseline": baseline, "spec": spec if isinstance(spec, dict) else None,
+            "runs": [_load_run(sweep, row) for row in rows]}
+
+
+# ================================================================================== statistics
+def _curve_band(values: np.ndarray, reps: int, rng: np.random.Generator,
+                confidence: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mean over seeds at every step and its percentile bootstrap interval, all steps at once.
+
+    Seeds (whole runs) are resampled with replacement, the same resample at every step; NaN values are
+    left out of each mean. One seed gives a band collapsed onto the mean.
+
+    Shape: values: (n_seeds, T) -> mean, low, high: (T,) each.
+    """
+    n = values.shape[0]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a step where every seed is NaN gives NaN
+        mean = np.nanmean(values, axis=0)
+        if n == 1:
+            return mean, mean.copy(), mean.copy()
+        idx = rng.integers(0, n, size=(reps, n))
+        boot = np.nanmean(values[idx], axis=1)  # (reps, T)
+        tail = 100.0 * (1.0 - confidence) / 2.0
+        low, high = np.nanpercentile(boot, [tail, 100.0 - tail], axis=0)
+    return mean, low, high
+
+
+def _canonical(value: Any) -> str:
+    return json.dumps(value, sort_keys=True, default=str)
+
+
+def _is_number(value: Any) -> bool:
+    return (isinstance(value, numbers.Real) and not isinstance(value, bool)
+            and math.isfinite(float(value)))
+
+
+def _short(value: Any) -> str:
+    if isinstance(value, str):
+        return value
+    return json.dumps(value, default=str)
+
+
+def _axes(arms: list[str], by_arm: dict[str, list[dict]], done: dict[str, list[dict]]) -> dict[str, Any]:
+    """Override keys whose value differs between arms: key -> {values, numeric, groups}.
+
+    An arm that does not set a key takes its value from a done run's ``config.yaml``. A key is numeric
+    when every arm with a done run has a finite number (not a bool) for it and there are two or more
+    distinct values; its ``groups`` split the arms by the values of the other varying keys (one line per
+    group in the axis figures), or hold every arm in one group when no group has two points (e.g. zipped
+    axes that move together).
+    """
+    keys: list[str] = []
+    for arm in arms:
+        for k in by_arm[arm][0]["overrides"]:
+            if k not in keys:
+                keys.append(k)
+
+    def value_of(arm: str, key: str) -> Any:
+        own = by_arm[arm][0]["overrides"].get(key, _MISSING)
+        if own is not _MISSING:
+            return own
+        for r in done[arm]:
+            found = _dig(r["config"], key)
+            if found is not _MISSING:
+                return found
+        return _MISSING
+
+    values = {k: {a: value_of(a, k) for a in arms} for k in keys}
+    varying = [k for k in keys
+               if len({_canonical(v) for v in values[k].values() if v is not _MISSING}) > 1]
+    out: dict[str, Any] = {}
+    for k in varying:
+        shown = {a: v for a, v in values[k].items() if v is not _MISSING}
+        with_data = [a for a in arms if done[a]]
+        numeric = (bool(with_data) and all(_is_number(shown.get(a)) for a in with_data)
+                   and len({float(shown[a]) for a in with_data}) > 1)
+        groups: dict[str, list[str]] = {}
+        if numeric:
+            others = [o for o in varying if o != k]
+            for a in with_data:
+                label = ", ".join(f"{o}={_short(values[o][a])}" for o in others
+                                  if values[o][a] is not _MISSING) or "all arms"
+                groups.setdefault(label, []).append(a)
+            if all(len(g) < 2 for g in groups.values()):
+                groups = {"all arms": with_data}
+            groups = {g: sorted(members, key=lambda a: float(shown[a])) for g, members in groups.items()}
+        out[k] = {"values": shown, "numeric": numeric, "groups": groups}
+    return out
+
+
+def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
+               holm_family: str) -> dict[str, Any]:
+    runs = data["runs"]
+    arms = list(dict.fromkeys(r["arm"] for r in runs))
+    by_arm = {a: sorted((r for r in runs if r["arm"] == a), key=lambda r: r["seed"]) for a in arms}
+    done = {a: [r for r in by_arm[a] if r["state"] == "done"] for a in arms}
+    warns: list[str] = []
+
+    # ---- baseline
+    baseline = data["baseline"]
+    if baseline is None and arms:
+        baseline = arms[0]
+        if len(arms) > 1:
+            warns.append(f"The ledger records no baseline; the first arm, `{baseline}`, is used.")
+    elif baseline is not None and baseline not in by_arm:
+        warns.append(f"The recorded baseline `{baseline}` has no runs in the ledger; nothing is compared.")
+
+    # ---- per arm
+    arm_info: dict[str, Any] = {}
+    for a in arms:
+        states = {s: sum(r["state"] == s for r in by_arm[a]) for s in ("done", "failed", "pending", "running")}
+        per_metric = {}
+        for m in METRICS:
+            x = np.array([r[m] for r in done[a]], dtype=float)
+            s = stats.summarize(x, reps=reps, seed=seed, confidence=CONFIDENCE)
+            rand = np.array([r["random"][m] for r in done[a]], dtype=float)
+            rand = rand[np.isfinite(rand)]
+            per_metric[m] = {**s, "nan_dropped": int(np.isnan(x).sum()),
+                             "random_mean": float(rand.mean()) if rand.size else math.nan}
+        arm_info[a] = {"overrides": dict(by_arm[a][0]["overrides"]), "runs": len(by_arm[a]),
+                       "done": states["done"], "states": states,
+                       "seeds_done": [r["seed"] for r in done[a]], "metrics": per_metric}
+
+    # ---- comparisons with the baseline
+    comparisons: dict[str, dict[str, Any]] = {}
+    others = [a for a in arms if a != baseline]
+    if baseline in by_arm and others:
+        for a in others:
+            comparisons[a] = {}
+            for m in METRICS:
+                xa = np.array([r[m] for r in done[a]], dtype=float)
+                xb = np.array([r[m] for r in done[baseline]], dtype=float)
+                comparisons[a][m] = stats.compare(xa, xb, test, reps=reps, confidence=CONFIDENCE, seed=seed)
+        families = ([[(a, m) for a in others] for m in METRICS] if holm_family == "metric"
+                    else [[(a, m) for m in METRICS for a in others]])
+        for family in families:
+            adjusted = stats.holm([comparisons[a][m]["p_value"] for a, m in family])
+            for (a, m), p in zip(family, adjusted):
+                comparisons[a][m]["p_holm"] = float(p)
+
+    # ---- curves: mean over seeds at the steps every seed of the arm logged
+    curves: dict[str, dict[str, Any]] = {}
+    for a in arms:
+        with_curve = [r for r in done[a] if r["curve"]]
+        if len(with_curve) < len(done[a]):
+            missing = len(done[a]) - len(with_curve)
+            warns.append(f"Arm `{a}`: {missing} done run(s) have no metrics.jsonl; the learning curves use "
+                         f"{len(with_curve)} seed(s).")
+        steps = sorted(set.intersection(*(set(r["curve"]) for r in with_curve))) if with_curve else []
+        curves[a] = {"seeds": len(with_curve), "env_steps": steps}
+        for m in METRICS:
+            if not steps:
+                curves[a][m] = {"mean": [], "ci_low": [], "ci_high": []}
+                continue
+            values = np.array([[_float(r["curve"][s].get(m)) for s in steps] for r in with_curve])
+            mean, low, high = _curve_band(values, reps, np.random.default_rng(seed), CONFIDENCE)
+            curves[a][m] = {"mean": mean.tolist(), "ci_low": low.tolist(), "ci_high": high.tolist()}
+
+    # ---- warnings
+    total = len(runs)
+    n_done = sum(r["state"] == "done" for r in runs)
+    if n_done < total:
+        counts = {s: sum(r["state"] == s for r in runs) for s in ("failed", "pending", "running")}
+        parts = ", ".join(f"{n} {s}" for s, n in counts.items() if n)
+        warns.append(f"{total - n_done} of {total} runs are not done ({parts}); every table and figure uses "
+                     f"the {n_done} done runs only.")
+    for a in arms:
+        n = arm_info[a]["done"]
+        if n == 0:
+            warns.append(f"Arm `{a}` has no done seed (of {arm_info[a]['runs']}): it has no results.")
+        elif n == 1:
+            warns.append(f"Arm `{a}` has 1 done seed (of {arm_info[a]['runs']}): its intervals collapse to "
+                         "that single value, so they show no uncertainty at all; it cannot be tested "
+                         "meaningfully.")
+        elif n < FEW_SEEDS:
+            warns.append(f"Arm `{a}` has {n} done seeds (of {arm_info[a]['runs']}), fewer than {FEW_SEEDS}: "
+                         "its intervals are wide and rough, its tests weak.")
+    for a in arms:
+        for m in METRICS:
+            k = arm_info[a]["metrics"][m]["nan_dropped"]
+            if k:
+                why = {"sustainability": " (no agent received a positive reward)",
+                       "equality": " (returns differ and sum to ≤ 0)"}.get(m, "")
+                warns.append(f"{m}: {k} of {arm_info[a]['done']} done run(s) of arm `{a}` are NaN{why} and "
+                             "are left out.")
+    seen: dict[tuple[str, str], list[str]] = {}
+    for a, per in comparisons.items():
+        for m, c in per.items():
+            if c.get("warning"):
+                seen.setdefault((a, c["warning"]), []).append(m)
+    for (a, text), ms in seen.items():
+        which = "every metric" if len(ms) == len(METRICS) else ", ".join(ms)
+        warns.append(f"`{a}` vs baseline `{baseline}` ({which}): {text}")
+    for r in runs:
+        warns.extend(r["problems"])
+
+    failed = [{"run_id": r["run_id"], "arm": r["arm"], "seed": r["seed"], "error": r["error"]}
+              for r in runs if r["state"] == "failed"]
+    configs = [r["config"] for r in runs if r["config"]]
+    games = sorted({str(_dig(c, "env.name")) for c in configs if _dig(c, "env.name") is not _MISSING})
+    learners = sorted({str(_dig(c, "learner.kind")) for c in configs
+                       if _dig(c, "learner.kind") is not _MISSING})
+    spec = data["spec"] or {}
+    return {
+        "sweep_dir": data["sweep_dir"], "baseline": baseline, "arms": arm_info, "arm_order": arms,
+        "comparisons": comparisons, "curves": curves, "axes": _axes(arms, by_arm, done) if arms else {},
+        "warnings": warns, "failed": failed, "runs_total": total, "runs_done": n_done,
+        "test": test, "reps": reps, "seed": seed, "confidence": CONFIDENCE, "holm_family": holm_family,
+        "metrics": list(METRICS), "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
+        "runs": [{k: v for k, v in r.items() if k not in ("config", "curve", "problems")} for r in runs],
+    }
+
+
+def report_summary(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: int = 2000,
+                   seed: int | None = 0, holm_family: str = "metric") -> dict[str, Any]:
+    """Every number of the report of the sweep in ``sweep_dir``, as a dict.
+
+    Keys: ``baseline``, ``arm_order`` (ledger order), ``arms`` (arm -> ``overrides``, ``runs``, ``done``,
+    ``states``, ``seeds_done`` and ``metrics``: metric -> :func:`~marl_core.ablation.stats.summarize`'s
+    ``n, mean, mean_ci, iqm, iqm_ci, std`` plus ``nan_dropped`` and ``random_mean``), ``comparisons``
+    (arm -> metric -> :func:`~marl_core.ablation.stats.compare`'s dict plus ``p_holm``; empty with one
+    arm), ``curves`` (arm -> ``env_steps``, ``seeds`` and per metric ``mean``, ``ci_low``, ``ci_high``),
+    ``axes`` (varying override key -> ``values`` per arm, ``numeric``, ``groups``), ``warnings`` (markdown
+    lines), ``failed`` (run_id, arm, seed, last line of the error), ``runs`` (one flat record per ledger
+    row), and the settings (``test``, ``reps``, ``seed``, ``confidence``, ``holm_family``).
+
+    Every bootstrap uses ``numpy.random.default_rng(seed)``, so ``summarize(x, reps, seed)`` and
+    ``compare(arm, baseline, test, reps=reps, seed=seed)`` on an arm's done runs (ordered by seed) give
+    the same numbers.
+
+    Raises:
+        RunDirError: ``sweep_dir`` has no ledger.sqlite.
+        ConfigError: ``test``, ``reps``, ``seed`` or ``holm_family`` out of range.
+    """
+    _check_args(test, reps, seed, holm_family)
+    return _summarize(_load(sweep_dir), test, int(reps), seed, holm_family)
+
+
+# ================================================================================== writing
+def _write_text(path: Path, text: str) -> None:
+    """Write ``text`` atomically (a temp file beside ``path``, then a rename)."""
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as f:
+            f.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        Path(tmp).unlink(missing_ok=True)
+        raise
+
+
+def _cell(value: Any) -> Any:
+    if value is None:
+        return ""
+    if isinstance(value, float):
+        return "" if math.isnan(value) else repr(value)
+    if isinstance(value, (dict, list, tuple)):
+        return json.dumps(value, sort_keys=True)
+    return value
+
+
+def _runs_csv(summary: dict[str, Any]) -> str:
+    runs = summary["runs"]
+    keys = list(dict.fromkeys(k for r in runs for k in r["overrides"]))
+    agents = sorted({a for r in runs for a in r["returns"]})
+    header = (["run_id", "arm", "seed", "state", "duration", *keys, "env_steps", "episodes", *METRICS,
+               *(f"return/{a}" for a in agents), *(f"random/{m}" for m in METRICS), "error"])
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(header)
+    for r in runs:
+        w.writerow([_cell(v) for v in (
+            r["run_id"], r["arm"], r["seed"], r["state"], r["duration"],
+            *(r["overrides"].get(k) for k in keys), r["env_steps"], r["episodes"], *(r[m] for m in METRICS),
+            *(r["returns"].get(a) for a in agents), *(r["random"][m] for m in METRICS), r["error"])])
+    return buf.getvalue()
+
+
+def _num(x: Any, digits: int = 4) -> str:
+    x = _float(x)
+    return "n/a" if math.isnan(x) else f"{x:.{digits}g}"
+
+
+def _with_ci(x: Any, ci: tuple[float, float]) -> str:
+    if math.isnan(_float(x)):
+        return "n/a"
+    return f"{_num(x)} [{_num(ci[0])}, {_num(ci[1])}]"
+
+
+def _pval(p: Any) -> str:
+    p = _float(p)
+    if math.isnan(p):
+        return "n/a"
+    return "< 0.001" if p < 0.001 else f"{p:.3g}"
+
+
+def _md(text: Any) -> str:
+    """Text for a markdown table cell."""
+    return str(text).replace("|", "\\|").replace("\n", " ")
+
+
+def _test_sentence(test: str) -> str:
+    if test == "mannwhitney":
+        return ("Mann–Whitney U test, two-sided (the default): a rank test that assumes no normal "
+                "distribution of the per-seed scores, which a handful of seeds cannot check. Its "
+                "p-value is exact with at most 8 seeds on a side and no ties, else a normal approximation.")
+    return ("Welch's t-test (unequal variances), two-sided, as asked (`test=\"welch\"`): it compares means "
+            "and rests on roughly normal per-seed scores, which a handful of seeds cannot check; the "
+            "default, Mann–Whitney U, assumes no normality.")
+
+
+def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
+    arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
+    test_name = _TEST_NAMES[summary["test"]]
+    pct = f"{summary['confidence']:.0%}"
+    n_others = len([a for a in arms if a != base])
+    family = (f"one family per metric: that metric's {n_others} arm-vs-baseline comparison(s); the "
+              f"{len(METRICS)} metrics are not corrected against each other (they are different questions, "
+              "and return_mean and efficiency are nearly the same number)"
+              if summary["holm_family"] == "metric" else
+              f"one family of every arm × metric comparison ({n_others} × {len(METRICS)} = "
+              f"{n_others * len(METRICS)})")
+    L: list[str] = []
+    add = L.append
+    add("# Sweep report\n")
+    add(f"- **Sweep directory:** `{summary['sweep_dir']}`")
+    if summary["games"] or summary["learners"]:
+        add(f"- **Game(s):** {', '.join(summary['games']) or 'n/a'}; **learner(s):** "
+            f"{', '.join(summary['learners']) or 'n/a'}")
+    add(f"- **Arms:** {len(arms)}; **baseline:** `{base}`")
+    seeds = ", ".join(f"`{a}` {info[a]['done']}/{info[a]['runs']}" for a in arms)
+    add(f"- **Seeds per arm (done/total):** {seeds}")
+    if summary["spec_seeds"] is not None:
+        add(f"- **Seeds in the spec:** {summary['spec_seeds']}")
+    add(f"- **Runs:** {summary['runs_done']} of {summary['runs_total']} done")
+    add(f"- **Test:** {_test_sentence(summary['test'])}")
+    add(f"- **Intervals:** {pct} percentile bootstrap, {summary['reps']} resamples (seed {summary['seed']}), "
+        "stratified as in Agarwal et al. 2021 with one stratum per arm (an arm is one task, so its seeds are "
+        "resampled among themselves). Differences of means resample both arms independently.")
+    add("- **IQM:** interquartile mean, the mean of the middle 50% of seeds (equal to the mean below 4 "
+        "seeds); less swayed by one odd seed than the mean.")
+    add(f"- **Multiple comparisons:** Holm's step-down correction, {family}.")
+    add("")
+
+    add("## Warnings\n")
+    if summary["warnings"]:
+        L.extend(f"- {w}" for w in summary["warnings"])
+    else:
+        add("None.")
+    add("")
+    add("## Failed runs\n")
+    if summary["failed"]:
+        add("| arm | seed | run id | error (last line) |")
+        add("|---|---|---|---|")
+        for f in summary["failed"]:
+            add(f"| `{_md(f['arm'])}` | {f['seed']} | `{f['run_id']}` | {_md(f['error'] or 'no message')} |")
+    else:
+        add("None.")
+    add("")
+
+    add("## Table 1: results per arm\n")
+    add(f"Final evaluation of each done seed (exploration off). Mean and IQM over seeds with {pct} "
+        "stratified bootstrap intervals; *n* = seeds used (NaN values left out); *random* = mean of the "
+        "random team measured in each run.\n")
+    for m in METRICS:
+        add(f"### {m}\n")
+        add(f"{_DESCRIPTIONS[m]}.\n")
+        add(f"| arm | n | mean [{pct} CI] | IQM [{pct} CI] | std | random |")
+        add("|---|---|---|---|---|---|")
+        for a in arms:
+            s = info[a]["metrics"][m]
+            label = f"`{_md(a)}`" + (" (baseline)" if a == base else "")
+            n = f"{s['n']}" + (f" ({s['nan_dropped']} NaN)" if s["nan_dropped"] else "")
+            add(f"| {label} | {n} | {_with_ci(s['mean'], s['mean_ci'])} | {_with_ci(s['iqm'], s['iqm_ci'])} "
+                f"| {_num(s['std'])} | {_num(s['random_mean'])} |")
+        add("")
+
+    add("## Table 2: each arm against the baseline\n")
+    if not summary["comparisons"]:
+        why = ("the sweep has one arm" if len(arms) <= 1
+               else f"the baseline `{base}` is not an arm of the ledger")
+        add(f"No comparison table: {why}, so there is nothing to compare.\n")
+    else:
+        holm_label = "per metric" if summary["holm_family"] == "metric" else "all comparisons"
+        add(f"Difference = mean(arm) − mean(baseline `{base}`) with its {pct} bootstrap interval; p = "
+            f"{test_name}, two-sided; p (Holm) = adjusted over {holm_label}; P(arm > baseline) = the "
+            "probability that a random seed of the arm beats a random seed of the baseline (ties count "
+            "half; 0.5 = no tendency). Every metric here is higher-is-better.\n")
+        for m in METRICS:
+            add(f"### {m}\n")
+            add(f"| arm | n arm / base | difference [{pct} CI] | p ({test_name}) | p (Holm, {holm_label}) "
+                "| P(arm > baseline) |")
+            add("|---|---|---|---|---|---|")
+            for a, per in summary["comparisons"].items():
+                c = per[m]
+                add(f"| `{_md(a)}` | {c['n_arm']} / {c['n_baseline']} | "
+                    f"{_with_ci(c['difference'], c['difference_ci'])} | {_pval(c['p_value'])} | "
+                    f"{_pval(c['p_holm'])} | {_num(c['prob_improvement'], 3)} |")
+            add("")
+
+    add("## Figures\n")
+    if not any(figures.values()):
+        add("No figures.\n")
+    titles = {"curve": "Learning curves (mean over seeds, bootstrap band; random team dashed)",
+              "bars": "IQM per arm with bootstrap CI (baseline hatched)",
+              "axis": "Metrics against numeric override keys (mean with bootstrap CI)"}
+    for kind, names in figures.items():
+        if not names:
+            continue
+        add(f"### {titles[kind]}\n")
+        L.extend(f"- [{Path(n).stem}]({n})" for n in names)
+        add("")
+    numeric = [k for k, ax in summary["axes"].items() if ax["numeric"]]
+    if not numeric:
+        add("No override key is numeric across arms, so there are no axis figures.\n")
+
+    add("## Caution\n")
+    add("These agents are simulated learners, not people. The findings are about these games, these "
+        "algorithms and these settings, measured over the seeds above; on their own they are no basis for "
+        "real-world policy or for claims about human behaviour.")
+    return "\n".join(L) + "\n"
+
+
+# ================================================================================== figures
+def _matplotlib() -> tuple[Any, Any]:
+    """The Figure class and the Agg canvas (no pyplot: no global backend or open-figure state)."""
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+    except ImportError:
+        raise MissingExtraError("the report's figures need matplotlib: pip install matplotlib") from None
+    return Figure, FigureCanvasAgg
+
+
+def _colours(n: int) -> list[Any]:
+    from matplotlib import colormaps
+
+    cmap = colormaps["tab10" if n <= 10 else "tab20"]
+    return [cmap(i % cmap.N) for i in range(n)]
+
+
+def _file_part(text: str) -> str:
+    return re.sub(r"[^A-Za-z0-9._-]+", "_", text).strip("_") or "key"
+
+
+def _save(fig: Any, path: Path) -> None:
+    fig.savefig(path, dpi=DPI, bbox_inches="tight")
+
+
+def _legend(ax: Any, n_entries: int) -> None:
+    if n_entries > 7:
+        ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
+    else:
+        ax.legend(fontsize=8, loc="best")
+
+
+def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
+    Figure, Canvas = _matplotlib()
+    curves, base, info = summary["curves"], summary["baseline"], summary["arms"]
+    arms = [a for a in summary["arm_order"] if curves[a]["env_steps"]]
+    if not arms:
+        return False
+    fig = Figure(figsize=(7.5, 4.5))
+    Canvas(fig)
+    ax = fig.add_subplot()
+    for a in arms:
+        c = curves[a]
+        steps = np.asarray(c["env_steps"], dtype=float)
+        lw = 2.4 if a == base else 1.6
+        ax.plot(steps, c[m]["mean"], color=colours[a], lw=lw,
+                label=f"{a} (baseline)" if a == base else a)
+        ax.fill_between(steps, c[m]["ci_low"], c[m]["ci_high"], color=colours[a], alpha=0.18, lw=0)
+    randoms = {a: info[a]["metrics"][m]["random_mean"] for a in arms}
+    finite = {a: r for a, r in randoms.items() if math.isfinite(r)}
+    if finite:
+        values = list(finite.values())
+        if max(values) - min(values) <= 1e-9 * max(1.0, max(abs(v) for v in values)):
+            ax.axhline(values[0], color="0.35", ls="--", lw=1.2, label="random team")
+        else:
+            for i, (a, r) in enumerate(finite.items()):
+                ax.axhline(r, color=colours[a], ls="--", lw=1.0,
+                           label="random team (per arm, dashed)" if i == 0 else None)
+    ax.set_xlabel("environment steps")
+    ax.set_ylabel(m)
+    ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} bootstrap band",
+                 fontsize=10)
+    ax.grid(alpha=0.3)
+    _legend(ax, len(arms) + 1)
+    _save(fig, path)
+    return True
+
+
+def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
+    Figure, Canvas = _matplotlib()
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
+    if not arms:
+        return False
+    fig = Figure(figsize=(max(5.0, 1.0 + 0.9 * len(arms)), 4.5))
+    Canvas(fig)
+    ax = fig.add_subplot()
+    x = np.arange(len(arms))
+    s = [info[a]["metrics"][m] for a in arms]
+    iqm = np.array([v["iqm"] for v in s], dtype=float)
+    low = np.array([v["iqm_ci"][0] for v in s], dtype=float)
+    high = np.array([v["iqm_ci"][1] for v in s], dtype=float)
+    height = np.nan_to_num(iqm)
+    yerr = np.nan_to_num(np.vstack([iqm - low, high - iqm])).clip(min=0.0)
+    bars = ax.bar(x, height, color=[colours[a] for a in arms], alpha=0.85, edgecolor="0.2", lw=0.8)
+    ax.errorbar(x, height, yerr=yerr, fmt="none", ecolor="black", capsize=4, lw=1.2)
+    for i, a in enumerate(arms):
+        if a == base:
+            bars[i].set_hatch("//")
+            bars[i].set_edgecolor("black")
+            bars[i].set_linewidth(2.0)
+        if math.isnan(iqm[i]):
+            ax.annotate("n/a", (x[i], 0.0), ha="center", va="bottom", fontsize=8)
+        r = s[i]["random_mean"]
+        if math.isfinite(r):
+            ax.hlines(r, x[i] - 0.4, x[i] + 0.4, colors="0.2", linestyles="dashed", lw=1.2)
+    labels = [f"{a}\n(n={v['n']})" for a, v in zip(arms, s)]
+    ax.set_xticks(x)
+    ax.set_xticklabels(labels, rotation=20 if len(arms) > 4 else 0, ha="right" if len(arms) > 4 else "center",
+                       fontsize=8)
+    ax.set_ylabel(f"{m} (IQM over seeds)")
+    ax.set_title(f"{m} by arm: IQM, {summary['confidence']:.0%} stratified bootstrap CI", fontsize=10)
+    ax.grid(axis="y", alpha=0.3)
+    handles = [Patch(facecolor="white", edgecolor="black", hatch="//", lw=2.0, label=f"baseline ({base})"),
+               Line2D([], [], color="black", marker="_", ls="none", markersize=10,
+                      label=f"{summary['confidence']:.0%} CI"),
+               Line2D([], [], color="0.2", ls="--", label="random team (mean)")]
+    ax.legend(handles=handles, fontsize=8, loc="best")
+    _save(fig, path)
+    return True
+
+
+def _axis_figure(summary: dict[str, Any], key: str, m: str, path: Path, colours: list[Any]) -> bool:
+    Figure, Canvas = _matplotlib()
+    axis, info, base = summary["axes"][key], summary["arms"], summary["baseline"]
+    fig = Figure(figsize=(6.5, 4.5))
+    Canvas(fig)
+    ax = fig.add_subplot()
+    drawn = 0
+    for i, (label, members) in enumerate(axis["groups"].items()):
+        xs = np.array([float(axis["values"][a]) for a in members])
+        s = [info[a]["metrics"][m] for a in members]
+        mean = np.array([v["mean"] for v in s], dtype=float)
+        low = np.array([v["mean_ci"][0] for v in s], dtype=float)
+        high = np.array([v["mean_ci"][1] for v in s], dtype=float)
+        ok = np.isfinite(mean)
+        if not ok.any():
+            continue
+        yerr = np.vstack([mean - low, high - mean])[:, ok].clip(min=0.0)
+        ax.errorbar(xs[ok], mean[ok], yerr=yerr, marker="o", capsize=4, lw=1.6, color=colours[i % len(colours)],
+                    label=label)
+        drawn += 1
+        if base in members and math.isfinite(info[base]["metrics"][m]["mean"]):
+            ax.plot([float(axis["values"][base])], [info[base]["metrics"][m]["mean"]], marker="o",
+                    markersize=11, mfc="none", mec="black", mew=1.8, ls="none", label=f"baseline ({base})")
+    if not drawn:
+        return False
+    by_x: dict[float, list[float]] = {}
+    for members in axis["groups"].values():
+        for a in members:
+            r = info[a]["metrics"][m]["random_mean"]
+            if math.isfinite(r):
+                by_x.setdefault(float(axis["values"][a]), []).append(r)
+    if by_x:
+        xs = sorted(by_x)
+        ax.plot(xs, [float(np.mean(by_x[v])) for v in xs], color="0.4", ls="--", lw=1.2, label="random team")
+    ax.set_xlabel(key)
+    ax.set_ylabel(f"{m} (mean over seeds)")
+    ax.set_title(f"{m} against {key}: mean, {summary['confidence']:.0%} bootstrap CI", fontsize=10)
+    ax.grid(alpha=0.3)
+    _legend(ax, drawn + 2)
+    _save(fig, path)
+    return True
+
+
+def _figures(summary: dict[str, Any], out: Path) -> dict[str, list[str]]:
+    """Draw every figure into ``out`` (old PNGs there removed first); relative paths by kind."""
+    out.mkdir(parents=True, exist_ok=True)
+    for old in out.glob("*.png"):
+        old.unlink()
+    arms = summary["arm_order"]
+    palette = _colours(max(1, len(arms)))
+    colours = dict(zip(arms, palette))
+    made: dict[str, list[str]] = {"curve": [], "bars": [], "axis": []}
+    for m in METRICS:
+        if _curve_figure(summary, m, out / f"curve_{m}.png", colours):
+            made["curve"].append(f"figures/curve_{m}.png")
+    for m in METRICS:
+        if _bars_figure(summary, m, out / f"bars_{m}.png", colours):
+            made["bars"].append(f"figures/bars_{m}.png")
+    for key, axis in summary["axes"].items():
+        if not axis["numeric"]:
+            continue
+        for m in METRICS:
+            name = f"axis_{_file_part(key)}_{m}.png"
+            if _axis_figure(summary, key, m, out / name, palette):
+                made["axis"].append(f"figures/{name}")
+    return made
+
+
+def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: int = 2000, seed: int | None = 0,
+                 holm_family: str = "metric") -> Path:
+    """Write ``sweep_dir/report/`` (report.md, runs.csv, figures/*.png) and return that directory.
+
+    Reads files only (see the module docstring); runs that are pending, running or failed are listed and
+    counted, and the tables use the done runs. Rewriting replaces the previous report, figures included.
+
+    Args:
+        sweep_dir: a sweep directory (holding ledger.sqlite).
+        test: ``"mannwhitney"`` (default, two-sided, no normality assumption) or ``"welch"``.
+        reps: bootstrap resamples for every interval.
+        seed: seed of every bootstrap (the same seed gives the same report).
+        holm_family: ``"metric"`` (default: Holm over the arms' comparisons of one metric) or ``"all"``.
+
+    Raises:
+        RunDirError: ``sweep_dir`` has no ledger.sqlite.
+        ConfigError: an argument out of range.
+        MissingExtraError: matplotlib is not installed.
+    """
+    summary = report_summary(sweep_dir, test=test, reps=reps, seed=seed, holm_family=holm_family)
+    out = Path(sweep_dir) / "report"
+    out.mkdir(parents=True, exist_ok=True)
+    figures = _figures(summary, out / "figures")
+    _write_text(out / "runs.csv", _runs_csv(summary))
+    _write_text(out / "report.md", _markdown(summary, figures))
+    return out

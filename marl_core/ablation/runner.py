@@ -1,0 +1,286 @@
+"""Run a sweep: every run of a spec in its own process, recorded in the sweep's ledger, safe to rerun.
+
+``ablate(spec, out)`` expands the spec, registers its runs in ``out/ledger.sqlite`` and runs what is not
+done yet, each run in its own process writing ``out/runs/<run_id>/`` (a normal run directory). A run that
+raises is recorded as failed with its traceback and the others go on; a run whose process dies is recorded
+with its exit code. Rerunning the same command skips finished runs and restarts interrupted ones (resuming
+from their last checkpoint when they have one); ``retry_failed`` reruns the failures too.
+
+Backends:
+
+* ``local`` (default): up to ``workers`` child processes at once (``spawn`` start method, one torch thread
+  each). Children die with the sweep process (Linux ``PR_SET_PDEATHSIG``), so a killed sweep leaves no
+  orphan writing into a run directory.
+* ``ray`` (``pip install "marl-core[ray]"``): each run is a Ray task with one CPU and up to two retries when
+  a worker crashes. ``address`` joins an existing cluster; otherwise a local one starts on 127.0.0.1.
+  Workers write run directories at the sweep directory's path, so on a multi-machine cluster the sweep
+  directory must be on storage every node mounts at the same path (e.g. NFS); the final metrics come back
+  to the driver, which alone writes the ledger.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import time
+import traceback
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from marl_core.ablation.ledger import Ledger
+from marl_core.ablation.spec import Sweep, load_spec
+from marl_core.errors import MissingExtraError, RunDirError
+
+__all__ = ["ablate", "run_one", "sweep_status", "BACKENDS", "HEADLINE"]
+
+BACKENDS = ("local", "ray")
+HEADLINE = "efficiency"  # the metric shown in status tables
+SUMMARY_METRICS = ("env_steps", "episodes", "return_mean", "efficiency", "equality", "sustainability", "peace")
+
+Progress = Callable[[dict[str, int], float | None], None]  # counts by state, ETA in seconds
+
+
+# ---------------------------------------------------------------------- one run, in a worker process
+def _die_with_parent() -> None:
+    """Ask Linux to kill this process when its parent dies (no-op elsewhere)."""
+    try:
+        import ctypes
+        import signal
+
+        libc = ctypes.CDLL("libc.so.6", use_errno=True)
+        libc.prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
+
+
+def run_one(config: dict[str, Any], run_dir: str) -> dict[str, Any]:
+    """Train one run of a sweep into ``run_dir`` (resume it if it has a checkpoint); return its metrics."""
+    import torch
+
+    from marl_core.config import parse_config
+    from marl_core.train import resume, run
+
+    torch.set_num_threads(1)
+    out = Path(run_dir)
+    if (out / "checkpoints" / "last.pt").is_file() and (out / "config.yaml").is_file():
+        summary = resume(out)
+    else:
+        if out.exists():  # started but never checkpointed: start again
+            shutil.rmtree(out)
+        summary = run(parse_config(config), out)
+    return final_metrics(summary)
+
+
+def final_metrics(summary: dict[str, Any]) -> dict[str, Any]:
+    """The part of a run's summary the ledger keeps."""
+    out = {k: summary.get(k) for k in SUMMARY_METRICS}
+    out["returns"] = summary.get("returns")
+    out["random"] = {k: (summary.get("random") or {}).get(k) for k in SUMMARY_METRICS[2:]}
+    return out
+
+
+def _child(config: dict[str, Any], run_dir: str, conn: Any) -> None:
+    _die_with_parent()
+    try:
+        conn.send(("done", run_one(config, run_dir)))
+    except BaseException:  # noqa: BLE001 - every failure of a run is recorded, none stops the sweep
+        conn.send(("failed", traceback.format_exc()))
+    finally:
+        conn.close()
+
+
+# ---------------------------------------------------------------------- the sweep
+def _prepare(spec: str | Path, out: Path, retry_failed: bool) -> tuple[Sweep, Ledger]:
+    sweep = load_spec(spec)
+    ledger_path = out / "ledger.sqlite"
+    if out.exists() and not out.is_dir():
+        raise RunDirError(f"sweep directory '{out}' is a file")
+    if out.is_dir() and any(out.iterdir()) and not ledger_path.is_file():
+        raise RunDirError(f"'{out}' exists and is not a sweep directory (no ledger.sqlite); choose a new --out")
+    if ledger_path.is_file():
+        ledger = Ledger(ledger_path)
+        known = ledger.get_meta("spec_hash")
+        if known is not None and known != sweep.spec_hash:
+            ledger.close()
+            raise RunDirError(f"sweep directory '{out}' holds a different spec (hash {known}, this one "
+                              f"{sweep.spec_hash}); choose a new --out")
+    else:
+        (out / "runs").mkdir(parents=True, exist_ok=True)
+        ledger = Ledger(ledger_path)
+        ledger.set_meta("spec_hash", sweep.spec_hash)
+        ledger.set_meta("spec", json.dumps(sweep.source, sort_keys=True, default=str))
+        ledger.set_meta("baseline", sweep.baseline)
+        ledger.set_meta("created", str(time.time()))
+    ledger.register(sweep.runs, run_dir_of=lambda rid: str(out / "runs" / rid))
+    _reconcile(ledger, out)
+    if retry_failed:
+        ledger.requeue(states=("failed",))
+    return sweep, ledger
+
+
+def _reconcile(ledger: Ledger, out: Path) -> None:
+    """Make the ledger agree with the run directories after an interruption."""
+    for row in ledger.rows():
+        run_dir = out / "runs" / row["run_id"]
+        summary = run_dir / "summary.json"
+        if row["state"] == "running":
+            if summary.is_file():  # finished after the sweep process died
+                ledger.mark_done(row["run_id"], final_metrics(json.loads(summary.read_text())))
+            else:
+                ledger.requeue(states=("running",), run_ids=[row["run_id"]])
+        elif row["state"] == "done" and not summary.is_file():
+            ledger.requeue(states=("done",), run_ids=[row["run_id"]])
+
+
+def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backend: str = "local",
+           address: str | None = None, retry_failed: bool = False,
+           progress: Progress | None = None) -> dict[str, int]:
+    """Run every unfinished run of ``spec`` into the sweep directory ``out``; return the final counts."""
+    if backend not in BACKENDS:
+        raise RunDirError(f"--backend = {backend!r} is not allowed; expected one of {', '.join(BACKENDS)}")
+    if workers is not None and workers < 1:
+        raise RunDirError(f"--workers = {workers} is not allowed; expected an integer >= 1")
+    if address is not None and backend != "ray":
+        raise RunDirError("--address is only used with --backend ray")
+    out = Path(out)
+    sweep, ledger = _prepare(spec, out, retry_failed)
+    try:
+        configs = {r.run_id: r.config for r in sweep.runs}
+        todo = [row for row in ledger.rows() if row["state"] == "pending"]
+        workers = workers or max(1, (os.cpu_count() or 1))
+        if todo:
+            if backend == "local":
+                _run_local(todo, configs, out, ledger, workers, progress)
+            else:
+                _run_ray(todo, configs, out, ledger, workers, address, progress)
+        return ledger.counts()
+    finally:
+        ledger.close()
+
+
+def _eta(ledger: Ledger, workers: int) -> float | None:
+    rows = ledger.rows()
+    took = [r["duration"] for r in rows if r["state"] == "done" and r["duration"]]
+    left = sum(r["state"] in ("pending", "running") for r in rows)
+    if not took:
+        return None
+    return sum(took) / len(took) * left / workers
+
+
+def _report(ledger: Ledger, workers: int, progress: Progress | None) -> None:
+    if progress is not None:
+        progress(ledger.counts(), _eta(ledger, workers))
+
+
+def _config_dict(cfg: Any) -> dict[str, Any]:
+    from marl_core.config import config_to_dict
+
+    return config_to_dict(cfg)
+
+
+def _run_local(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers: int,
+               progress: Progress | None) -> None:
+    import multiprocessing as mp
+    from multiprocessing.connection import wait
+
+    ctx = mp.get_context("spawn")
+    queue = list(todo)
+    running: dict[str, tuple[Any, Any]] = {}
+    _report(ledger, workers, progress)
+    while queue or running:
+        while queue and len(running) < workers:
+            row = queue.pop(0)
+            rid = row["run_id"]
+            recv, send = ctx.Pipe(duplex=False)
+            proc = ctx.Process(target=_child, args=(_config_dict(configs[rid]), str(out / "runs" / rid), send),
+                               name=f"marl-core run {rid}", daemon=False)
+            proc.start()
+            send.close()
+            running[rid] = (proc, recv)
+            ledger.mark_running(rid, worker=f"pid {proc.pid}")
+            _report(ledger, workers, progress)
+        wait([p.sentinel for p, _ in running.values()], timeout=1.0)
+        for rid, (proc, recv) in list(running.items()):
+            if proc.is_alive():
+                continue
+            proc.join()
+            msg = recv.recv() if recv.poll() else None
+            recv.close()
+            del running[rid]
+            if msg is not None and msg[0] == "done":
+                ledger.mark_done(rid, msg[1])
+            elif msg is not None:
+                ledger.mark_failed(rid, msg[1])
+            else:
+                ledger.mark_failed(rid, f"worker process died with exit code {proc.exitcode}")
+            _report(ledger, workers, progress)
+
+
+def _ray_task(config: dict[str, Any], run_dir: str) -> tuple[str, Any]:
+    try:
+        return "done", run_one(config, run_dir)
+    except Exception:  # noqa: BLE001 - recorded as a failed run
+        return "failed", traceback.format_exc()
+
+
+def _run_ray(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers: int, address: str | None,
+             progress: Progress | None) -> None:
+    os.environ.setdefault("RAY_USAGE_STATS_ENABLED", "0")
+    os.environ.setdefault("RAY_AUTH_MODE", "disabled")
+    try:
+        import ray
+    except ImportError:
+        raise MissingExtraError('the ray backend needs Ray: pip install "marl-core[ray]"') from None
+    started_here = not ray.is_initialized()
+    if started_here:
+        if address:
+            ray.init(address=address, include_dashboard=False, log_to_driver=False)
+        else:
+            ray.init(num_cpus=workers, include_dashboard=False, log_to_driver=False,
+                     _node_ip_address="127.0.0.1")
+    try:
+        task = ray.remote(num_cpus=1, max_retries=2)(_ray_task)
+        pending = {}
+        for row in todo:
+            rid = row["run_id"]
+            ref = task.remote(_config_dict(configs[rid]), str((out / "runs" / rid).resolve()))
+            pending[ref] = rid
+            ledger.mark_running(rid, worker="ray")
+        _report(ledger, workers, progress)
+        while pending:
+            ready, _ = ray.wait(list(pending), num_returns=1, timeout=1.0)
+            for ref in ready:
+                rid = pending.pop(ref)
+                try:
+                    state, value = ray.get(ref)
+                except Exception:  # noqa: BLE001 - a task that crashed past its retries
+                    state, value = "failed", traceback.format_exc()
+                if state == "done":
+                    ledger.mark_done(rid, value)
+                else:
+                    ledger.mark_failed(rid, value)
+                _report(ledger, workers, progress)
+    finally:
+        if started_here:
+            ray.shutdown()
+
+
+def sweep_status(out: str | Path) -> list[dict[str, Any]]:
+    """Every run of a sweep: arm, seed, state, duration, the headline metric, error (first line)."""
+    out = Path(out)
+    if not (out / "ledger.sqlite").is_file():
+        raise RunDirError(f"'{out}' is not a sweep directory (no ledger.sqlite)")
+    ledger = Ledger(out / "ledger.sqlite")
+    try:
+        rows = []
+        for r in ledger.rows():
+            metrics = r.get("metrics") or {}
+            err = (r.get("error") or "").strip().splitlines()
+            rows.append({"run_id": r["run_id"], "arm": r["arm"], "seed": r["seed"], "state": r["state"],
+                         "duration": r.get("duration"), HEADLINE: metrics.get(HEADLINE),
+                         "error": err[-1] if err else None})
+        return rows
+    finally:
+        ledger.close()
