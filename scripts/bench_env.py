@@ -26,8 +26,10 @@ least half an episode the count is rounded to whole episodes, so every repeat ru
 and resets. Each repeat starts from the same seeded reset (not timed) and replays the same actions; an
 episode that ends by truncation is reset inside the timed loop, because resetting is part of running
 episodes. The figure reported is the best (fastest) repeat: noise on a shared machine only ever slows a
-run down, so the minimum time is the best estimate of the code's own cost. All repeat times are listed too;
-a large spread among them means the machine was busy.
+run down, so the minimum time is the best estimate of the code's own cost. Every repeat's wall time
+(``times_s``) and CPU time of this process (``cpu_s``) are listed too, with the machine's load average
+before and after: a wide spread of times, wall well above CPU, or a load near or above ``cpu_count`` all
+mean other work shared the machine and the figures are low.
 
 How to read it. Compare figures only between runs on the same machine (the JSON carries python, numpy,
 platform and CPU). ``targets`` lists the throughput this project aims for and ``targets_met`` says whether
@@ -80,9 +82,11 @@ def _plan_steps(rate_steps_per_s: float, seconds: float, repeats: int, max_cycle
     return steps
 
 
-def _best_of(run, repeats: int) -> tuple[float, list[float]]:
+def _best_of(run, repeats: int) -> tuple[float, list[float], list[float]]:
+    """Best wall time of ``repeats`` calls of ``run`` (which returns wall and CPU seconds), and all of both."""
     times = [run() for _ in range(repeats)]
-    return min(times), times
+    wall = [w for w, _ in times]
+    return min(wall), wall, [c for _, c in times]
 
 
 def measure_batched(game: str, num_envs: int, num_agents: int, view_radius: int, seconds: float,
@@ -110,24 +114,24 @@ def measure_batched(game: str, num_envs: int, num_agents: int, view_radius: int,
     actions = rng.integers(0, n_act, size=(steps, num_envs, num_agents), dtype=np.int64)
     resets, obs_shape = 0, []
 
-    def run() -> float:
+    def run() -> tuple[float, float]:
         nonlocal resets, obs_shape
         obs, _ = env.reset(seed=seed)
         resets = 0
         step = env.step
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.process_time()
         for i in range(steps):
             obs, _, _, trunc, _ = step(actions[i])
             if trunc.all():  # copies run in lockstep: all truncate together
                 obs, _ = env.reset()
                 resets += 1
-        elapsed = time.perf_counter() - t
+        elapsed = time.perf_counter() - t, time.process_time() - c
         obs_shape = list(obs.shape)
         return elapsed
 
-    best, times = _best_of(run, repeats)
+    best, wall, cpu = _best_of(run, repeats)
     return {"agent_steps_per_s": steps * num_envs * num_agents / best, "steps": steps,
-            "resets_per_repeat": resets, "times_s": times, "obs_shape": obs_shape,
+            "resets_per_repeat": resets, "times_s": wall, "cpu_s": cpu, "obs_shape": obs_shape,
             "layout": env.params["layout"], "max_cycles": env.max_cycles}
 
 
@@ -160,23 +164,23 @@ def measure_single(game: str, num_agents: int, view_radius: int, seconds: float,
     actions = dicts(steps)
     resets = 0
 
-    def run() -> float:
+    def run() -> tuple[float, float]:
         nonlocal resets
         env.reset(seed=seed)
         resets = 0
         step = env.step
-        t = time.perf_counter()
+        t, c = time.perf_counter(), time.process_time()
         for i in range(steps):
             step(actions[i])
             if not env.agents:  # every agent truncated: the episode is over
                 env.reset()
                 resets += 1
-        return time.perf_counter() - t
+        return time.perf_counter() - t, time.process_time() - c
 
-    best, times = _best_of(run, repeats)
+    best, wall, cpu = _best_of(run, repeats)
     obs_shape = list(env.observation_space(agents[0]).shape)
     return {"agent_steps_per_s": steps * num_agents / best, "steps": steps, "resets_per_repeat": resets,
-            "times_s": times, "obs_shape": obs_shape}
+            "times_s": wall, "cpu_s": cpu, "obs_shape": obs_shape}
 
 
 def bench_game(game: str, num_envs: int, num_agents: int, view_radius: int, seconds: float, repeats: int,
@@ -199,7 +203,9 @@ def bench_game(game: str, num_envs: int, num_agents: int, view_radius: int, seco
         "resets_per_repeat": {"batched": bat["resets_per_repeat"], "single": one["resets_per_repeat"]},
         "repeats": {"k": repeats, "method": _METHOD.format(k=repeats),
                     "times_s": {"batched": [round(t, 4) for t in bat["times_s"]],
-                                "single": [round(t, 4) for t in one["times_s"]]}},
+                                "single": [round(t, 4) for t in one["times_s"]]},
+                    "cpu_s": {"batched": [round(t, 4) for t in bat["cpu_s"]],
+                              "single": [round(t, 4) for t in one["cpu_s"]]}},
     }
 
 
@@ -212,6 +218,14 @@ def _cpu_name() -> str:
     except OSError:
         pass
     return platform.processor() or "unknown"
+
+
+def _load_average() -> list[float] | None:
+    """1, 5 and 15 minute load averages (None where the OS has none): other work on the machine."""
+    try:
+        return [round(v, 2) for v in os.getloadavg()]
+    except (AttributeError, OSError):
+        return None
 
 
 def _targets_met(results: dict[str, dict[str, Any]]) -> dict[str, dict[str, bool]]:
@@ -263,6 +277,7 @@ def main(argv: list[str] | None = None) -> int:
     threads = _single_thread()
     import numpy as np
 
+    load_before = _load_average()
     results = {game: bench_game(game, args.num_envs, args.agents, args.view_radius, args.seconds,
                                 args.repeats, args.seed) for game in GAMES}
     report = {
@@ -271,6 +286,7 @@ def main(argv: list[str] | None = None) -> int:
         "platform": platform.platform(),
         "cpu": _cpu_name(),
         "cpu_count": os.cpu_count(),
+        "load_average": {"before": load_before, "after": _load_average()},
         "threads": threads,
         "seconds_per_measurement": args.seconds,
         "seed": args.seed,

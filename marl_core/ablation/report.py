@@ -381,7 +381,9 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     # ---- warnings
     total = len(runs)
     n_done = sum(r["state"] == "done" for r in runs)
-    if n_done < total:
+    if not total:
+        warns.append("The ledger holds no runs: there is nothing to report yet.")
+    elif n_done < total:
         counts = {s: sum(r["state"] == s for r in runs) for s in ("failed", "pending", "running")}
         parts = ", ".join(f"{n} {s}" for s, n in counts.items() if n)
         warns.append(f"{total - n_done} of {total} runs are not done ({parts}); every table and figure uses "
@@ -531,7 +533,7 @@ def _test_sentence(test: str) -> str:
             "default, Mann–Whitney U, assumes no normality.")
 
 
-def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
+def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: bool = True) -> str:
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
     test_name = _TEST_NAMES[summary["test"]]
     pct = f"{summary['confidence']:.0%}"
@@ -549,12 +551,14 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
     if summary["games"] or summary["learners"]:
         add(f"- **Game(s):** {', '.join(summary['games']) or 'n/a'}; **learner(s):** "
             f"{', '.join(summary['learners']) or 'n/a'}")
-    add(f"- **Arms:** {len(arms)}; **baseline:** `{base}`")
+    add(f"- **Arms:** {len(arms)}; **baseline:** " + (f"`{base}`" if base is not None else "none"))
     seeds = ", ".join(f"`{a}` {info[a]['done']}/{info[a]['runs']}" for a in arms)
     add(f"- **Seeds per arm (done/total):** {seeds}")
     if summary["spec_seeds"] is not None:
         add(f"- **Seeds in the spec:** {summary['spec_seeds']}")
-    add(f"- **Runs:** {summary['runs_done']} of {summary['runs_total']} done")
+    states = {st: sum(r["state"] == st for r in summary["runs"]) for st in ("failed", "pending", "running")}
+    rest = ", ".join(f"{n} {st}" for st, n in states.items() if n)
+    add(f"- **Runs:** {summary['runs_done']} of {summary['runs_total']} done" + (f" ({rest})" if rest else ""))
     add(f"- **Test:** {_test_sentence(summary['test'])}")
     add(f"- **Intervals:** {pct} percentile bootstrap, {summary['reps']} resamples (seed {summary['seed']}), "
         "stratified as in Agarwal et al. 2021 with one stratum per arm (an arm is one task, so its seeds are "
@@ -599,13 +603,15 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
 
     add("## Table 2: each arm against the baseline\n")
     if not summary["comparisons"]:
-        why = ("the sweep has one arm" if len(arms) <= 1
+        why = ("the ledger holds no runs" if not arms else "the sweep has one arm" if len(arms) == 1
                else f"the baseline `{base}` is not an arm of the ledger")
         add(f"No comparison table: {why}, so there is nothing to compare.\n")
     else:
         holm_label = "per metric" if summary["holm_family"] == "metric" else "all comparisons"
+        holm_text = ("within each metric, over its arms" if summary["holm_family"] == "metric"
+                     else "over every arm × metric comparison together")
         add(f"Difference = mean(arm) − mean(baseline `{base}`) with its {pct} bootstrap interval; p = "
-            f"{test_name}, two-sided; p (Holm) = adjusted over {holm_label}; P(arm > baseline) = the "
+            f"{test_name}, two-sided; p (Holm) = Holm-adjusted {holm_text}; P(arm > baseline) = the "
             "probability that a random seed of the arm beats a random seed of the baseline (ties count "
             "half; 0.5 = no tendency). Every metric here is higher-is-better.\n")
         for m in METRICS:
@@ -621,8 +627,10 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
             add("")
 
     add("## Figures\n")
-    if not any(figures.values()):
-        add("No figures.\n")
+    if not drawn:
+        add("Figures were not drawn (`figures=False`).\n")
+    elif not any(figures.values()):
+        add("No figures: no arm has a done run.\n")
     titles = {"curve": "Learning curves (mean over seeds, bootstrap band; random team dashed)",
               "bars": "IQM per arm with bootstrap CI (baseline hatched)",
               "axis": "Metrics against numeric override keys (mean with bootstrap CI)"}
@@ -633,7 +641,7 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]]) -> str:
         L.extend(f"- [{Path(n).stem}]({n})" for n in names)
         add("")
     numeric = [k for k, ax in summary["axes"].items() if ax["numeric"]]
-    if not numeric:
+    if drawn and not numeric:
         add("No override key is numeric across arms, so there are no axis figures.\n")
 
     add("## Caution\n")
@@ -666,14 +674,12 @@ def _file_part(text: str) -> str:
 
 
 def _save(fig: Any, path: Path) -> None:
-    fig.savefig(path, dpi=DPI, bbox_inches="tight")
+    fig.savefig(path, dpi=DPI, bbox_inches="tight")  # tight: the legend beside the axes stays in
 
 
-def _legend(ax: Any, n_entries: int) -> None:
-    if n_entries > 7:
-        ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False)
-    else:
-        ax.legend(fontsize=8, loc="best")
+def _legend(ax: Any, **kwargs: Any) -> None:
+    """The legend beside the axes, where it never covers a line, a band or a bar."""
+    ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, **kwargs)
 
 
 def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
@@ -707,7 +713,7 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
     ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} bootstrap band",
                  fontsize=10)
     ax.grid(alpha=0.3)
-    _legend(ax, len(arms) + 1)
+    _legend(ax)
     _save(fig, path)
     return True
 
@@ -718,7 +724,7 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
     from matplotlib.patches import Patch
 
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
-    if not arms:
+    if not any(math.isfinite(info[a]["metrics"][m]["iqm"]) for a in arms):
         return False
     fig = Figure(figsize=(max(5.0, 1.0 + 0.9 * len(arms)), 4.5))
     Canvas(fig)
@@ -742,10 +748,12 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
         r = s[i]["random_mean"]
         if math.isfinite(r):
             ax.hlines(r, x[i] - 0.4, x[i] + 0.4, colors="0.2", linestyles="dashed", lw=1.2)
-    labels = [f"{a}\n(n={v['n']})" for a, v in zip(arms, s)]
+    labels = [f"{a} (n={v['n']})" for a, v in zip(arms, s)]
     ax.set_xticks(x)
-    ax.set_xticklabels(labels, rotation=20 if len(arms) > 4 else 0, ha="right" if len(arms) > 4 else "center",
-                       fontsize=8)
+    if len(arms) > 3 or max(len(t) for t in labels) > 18:  # slanted, anchored at the tick
+        ax.set_xticklabels(labels, rotation=35, ha="right", rotation_mode="anchor", fontsize=8)
+    else:
+        ax.set_xticklabels(labels, fontsize=8)
     ax.set_ylabel(f"{m} (IQM over seeds)")
     ax.set_title(f"{m} by arm: IQM, {summary['confidence']:.0%} stratified bootstrap CI", fontsize=10)
     ax.grid(axis="y", alpha=0.3)
@@ -753,7 +761,7 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
                Line2D([], [], color="black", marker="_", ls="none", markersize=10,
                       label=f"{summary['confidence']:.0%} CI"),
                Line2D([], [], color="0.2", ls="--", label="random team (mean)")]
-    ax.legend(handles=handles, fontsize=8, loc="best")
+    _legend(ax, handles=handles)
     _save(fig, path)
     return True
 
@@ -796,7 +804,7 @@ def _axis_figure(summary: dict[str, Any], key: str, m: str, path: Path, colours:
     ax.set_ylabel(f"{m} (mean over seeds)")
     ax.set_title(f"{m} against {key}: mean, {summary['confidence']:.0%} bootstrap CI", fontsize=10)
     ax.grid(alpha=0.3)
-    _legend(ax, drawn + 2)
+    _legend(ax)
     _save(fig, path)
     return True
 
@@ -827,7 +835,7 @@ def _figures(summary: dict[str, Any], out: Path) -> dict[str, list[str]]:
 
 
 def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: int = 2000, seed: int | None = 0,
-                 holm_family: str = "metric") -> Path:
+                 holm_family: str = "metric", figures: bool = True) -> Path:
     """Write ``sweep_dir/report/`` (report.md, runs.csv, figures/*.png) and return that directory.
 
     Reads files only (see the module docstring); runs that are pending, running or failed are listed and
@@ -839,16 +847,23 @@ def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: 
         reps: bootstrap resamples for every interval.
         seed: seed of every bootstrap (the same seed gives the same report).
         holm_family: ``"metric"`` (default: Holm over the arms' comparisons of one metric) or ``"all"``.
+        figures: draw the PNG figures (default); ``False`` writes report.md and runs.csv only (fast, and
+            no matplotlib needed).
 
     Raises:
         RunDirError: ``sweep_dir`` has no ledger.sqlite.
         ConfigError: an argument out of range.
-        MissingExtraError: matplotlib is not installed.
+        MissingExtraError: matplotlib is not installed (and ``figures`` is true).
     """
     summary = report_summary(sweep_dir, test=test, reps=reps, seed=seed, holm_family=holm_family)
     out = Path(sweep_dir) / "report"
     out.mkdir(parents=True, exist_ok=True)
-    figures = _figures(summary, out / "figures")
+    if figures:
+        drawn = _figures(summary, out / "figures")
+    else:
+        drawn = {"curve": [], "bars": [], "axis": []}
+        for old in (out / "figures").glob("*.png"):  # no stale figures beside a report that links none
+            old.unlink()
     _write_text(out / "runs.csv", _runs_csv(summary))
-    _write_text(out / "report.md", _markdown(summary, figures))
+    _write_text(out / "report.md", _markdown(summary, drawn, figures))
     return out

@@ -1,0 +1,342 @@
+"""The sweep report of ``marl_core.ablation.report``: files written, numbers held against the stats functions.
+
+Every sweep here is built by hand: a ledger filled through ``Ledger``'s own methods and run directories with
+synthetic ``summary.json`` / ``metrics.jsonl`` / ``config.yaml``. All data is invented (demo only) — no
+training runs and the numbers mean nothing about any game.
+"""
+
+import csv
+import json
+import math
+import subprocess
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pytest
+import yaml
+
+from marl_core.ablation import stats
+from marl_core.ablation.ledger import Ledger
+from marl_core.ablation.report import METRICS, report_summary, write_report
+from marl_core.ablation.runner import final_metrics
+from marl_core.errors import ConfigError, RunDirError
+
+REPS = 200  # small, to keep the tests fast
+TAG_COSTS = (0.0, 0.5, 1.0)
+ARMS = tuple(f"tag_cost={c}" for c in TAG_COSTS)
+BASELINE = ARMS[0]
+SEEDS = (0, 1, 2, 3, 4)
+AGENTS = ("player_0", "player_1", "player_2")
+STEPS = (100, 200, 300, 400, 500)
+FAILED = (ARMS[2], 4)  # this run fails
+NAN_SUSTAINABILITY = (ARMS[1], 2)  # nobody scores in this run's final evaluation
+NO_STEP_300 = (ARMS[0], 1)  # this run's metrics.jsonl lacks the step 300 line
+
+
+@dataclass(frozen=True)
+class FakeRun:
+    """What ``Ledger.register`` reads of a ``RunSpec``."""
+
+    run_id: str
+    arm: str
+    seed: int
+    overrides: dict = field(default_factory=dict)
+
+
+def final_values(k: int, seed: int) -> dict:
+    """Invented final metrics of arm k at a seed: each arm better than the last by a known step."""
+    returns = {a: 20.0 * (1 + k) + 0.5 * seed + i for i, a in enumerate(AGENTS)}
+    return {
+        "returns": returns,
+        "return_mean": float(np.mean(list(returns.values()))),
+        "efficiency": 2.0 + 1.0 * k + 0.1 * seed,
+        "equality": 0.7 + 0.05 * k + 0.01 * seed,
+        "sustainability": 200.0 + 10.0 * k + seed,
+        "peace": 2.0 + 0.2 * k + 0.05 * seed,
+    }
+
+
+def random_values(k: int) -> dict:
+    return {"returns": dict.fromkeys(AGENTS, 1.0), "return_mean": 1.0, "efficiency": 0.3,
+            "equality": 0.5, "sustainability": 120.0, "peace": 1.5 - 0.1 * k}
+
+
+def write_run(run_dir: Path, config: dict, final: dict, random: dict, steps=STEPS, summary=True) -> None:
+    run_dir.mkdir(parents=True)
+    (run_dir / "config.yaml").write_text(yaml.safe_dump(config))
+    with open(run_dir / "metrics.jsonl", "w") as f:
+        for s in steps:
+            scale = s / STEPS[-1]
+            row = {"env_steps": s, "episodes": s // 50,
+                   **{m: (None if final[m] is None else final[m] * scale) for m in METRICS},
+                   "returns": {a: r * scale for a, r in final["returns"].items()}}
+            f.write(json.dumps(row) + "\n")
+    if summary:
+        data = {"env_steps": steps[-1], "episodes": steps[-1] // 50, "eval_episodes": 4, **final,
+                "random": random, "learner": "idqn", "env": "harvest_v0", "seed": config["train"]["seed"]}
+        (run_dir / "summary.json").write_text(json.dumps(data))
+
+
+def make_sweep(root: Path, arms=ARMS, seeds=SEEDS, failed=FAILED, nan=NAN_SUSTAINABILITY,
+               pending=(), baseline=BASELINE, baseline_sets_axis=True) -> Path:
+    """A sweep directory of invented runs (demo data only), every run done unless listed otherwise."""
+    root.mkdir(parents=True, exist_ok=True)
+    ledger = Ledger(root / "ledger.sqlite")
+    spec = {"base": "harvest_idqn.yaml", "seeds": list(seeds), "set": {"train.total_steps": 500},
+            "axes": {"env.params.tag_cost": [TAG_COSTS[i] for i in range(len(arms))]}, "baseline": baseline}
+    ledger.set_meta("spec", json.dumps(spec))
+    ledger.set_meta("baseline", baseline)
+    runs = []
+    for k, arm in enumerate(arms):
+        for seed in seeds:
+            overrides = {"train.total_steps": 500, "env.params.tag_cost": TAG_COSTS[k], "train.seed": seed}
+            if k == 0 and not baseline_sets_axis:  # like a named arm that keeps the base config's value
+                del overrides["env.params.tag_cost"]
+            runs.append(FakeRun(f"run{k}s{seed}", arm, seed, overrides))
+    ledger.register(runs, run_dir_of=lambda rid: str(root / "runs" / rid))
+    for k, arm in enumerate(arms):
+        for seed in seeds:
+            rid = f"run{k}s{seed}"
+            if (arm, seed) in pending:
+                continue
+            config = {"env": {"name": "harvest_v0", "params": {"tag_cost": TAG_COSTS[k], "view_radius": 5}},
+                      "learner": {"kind": "idqn"}, "train": {"total_steps": 500, "seed": seed}}
+            final = final_values(k, seed)
+            if (arm, seed) == nan:
+                final["sustainability"] = None  # JSON null: NaN as train.write_json writes it
+            steps = tuple(s for s in STEPS if s != 300) if (arm, seed) == NO_STEP_300 else STEPS
+            ledger.mark_running(rid, worker="test")
+            if (arm, seed) == failed:
+                write_run(root / "runs" / rid, config, final, random_values(k), steps=STEPS[:2], summary=False)
+                ledger.mark_failed(rid, "Traceback (most recent call last):\n  File \"x.py\", line 1\n"
+                                        "ValueError: demo failure: replay exploded\n")
+                continue
+            write_run(root / "runs" / rid, config, final, random_values(k), steps=steps)
+            summary = json.loads((root / "runs" / rid / "summary.json").read_text())
+            ledger.mark_done(rid, final_metrics(summary))
+    ledger.close()
+    return root
+
+
+def arm_values(arm_index: int, metric: str, seeds=SEEDS) -> np.ndarray:
+    """Direct computation: the arm's done runs in seed order, NaN where the run has none."""
+    arm = ARMS[arm_index]
+    out = []
+    for seed in seeds:
+        if (arm, seed) == FAILED:
+            continue
+        v = final_values(arm_index, seed)[metric]
+        out.append(math.nan if (arm, seed) == NAN_SUSTAINABILITY and metric == "sustainability" else v)
+    return np.array(out, dtype=float)
+
+
+NO_TORCH = """
+import sys
+from marl_core.ablation.report import write_report
+assert "torch" not in sys.modules, "torch imported by the import"
+out = write_report(sys.argv[1], reps=int(sys.argv[2]), seed=0)
+assert "torch" not in sys.modules, "torch imported by write_report"
+print(out)
+"""
+
+
+@pytest.fixture(scope="module")
+def sweep(tmp_path_factory):
+    """The 3-arm sweep and its report, written in a fresh interpreter that checks torch is never imported
+    (one report serves the file tests and the no-torch test, to keep the suite fast)."""
+    root = make_sweep(tmp_path_factory.mktemp("sweep") / "sweep")
+    done = subprocess.run([sys.executable, "-c", NO_TORCH, str(root), str(REPS)], capture_output=True,
+                          text=True, timeout=120, cwd=Path(__file__).resolve().parents[2])
+    assert done.returncode == 0, done.stderr
+    return root, Path(done.stdout.strip())
+
+
+@pytest.fixture(scope="module")
+def summary(sweep):
+    return report_summary(sweep[0], reps=REPS, seed=0)
+
+
+# ------------------------------------------------------------------------------------------ the files
+def test_every_file_is_written(sweep):
+    root, out = sweep
+    from PIL import Image
+
+    assert out == root / "report"
+    assert (out / "report.md").stat().st_size > 0
+    assert (out / "runs.csv").stat().st_size > 0
+    expected = ([f"curve_{m}.png" for m in METRICS] + [f"bars_{m}.png" for m in METRICS]
+                + [f"axis_env.params.tag_cost_{m}.png" for m in METRICS])
+    found = sorted(p.name for p in (out / "figures").glob("*.png"))
+    assert found == sorted(expected)  # train.total_steps is the same in every arm: no axis figure
+    for name in expected:
+        path = out / "figures" / name
+        assert path.stat().st_size > 0
+        with Image.open(path) as im:
+            im.verify()
+            assert im.format == "PNG"
+
+
+def test_runs_csv_has_one_row_per_run(sweep):
+    with open(sweep[1] / "runs.csv", newline="") as f:
+        rows = list(csv.DictReader(f))
+    assert len(rows) == len(ARMS) * len(SEEDS)
+    cols = rows[0].keys()
+    for col in ("run_id", "arm", "seed", "state", "duration", "env.params.tag_cost", "train.total_steps",
+                "env_steps", "episodes", *METRICS, *(f"return/{a}" for a in AGENTS),
+                *(f"random/{m}" for m in METRICS), "error"):
+        assert col in cols
+    assert "train.seed" not in cols  # the seed has its own column
+    by_key = {(r["arm"], int(r["seed"])): r for r in rows}
+    failed = by_key[FAILED]
+    assert failed["state"] == "failed"
+    assert failed["error"] == "ValueError: demo failure: replay exploded"
+    assert failed["efficiency"] == ""
+    assert by_key[NAN_SUSTAINABILITY]["sustainability"] == ""
+    done = by_key[(ARMS[1], 3)]
+    assert done["state"] == "done"
+    assert float(done["efficiency"]) == pytest.approx(final_values(1, 3)["efficiency"])
+    assert float(done["env.params.tag_cost"]) == 0.5
+    assert float(done["random/peace"]) == pytest.approx(random_values(1)["peace"])
+
+
+def test_report_md_says_what_was_done(sweep, summary):
+    text = (sweep[1] / "report.md").read_text()
+    for phrase in ("Mann–Whitney U", "two-sided", "no normal", "Holm", "one family per metric",
+                   "Seeds per arm (done/total)", f"`{ARMS[2]}` 4/5", f"`{ARMS[0]}` 5/5", "## Warnings",
+                   f"{REPS} resamples", "Agarwal et al. 2021", "one stratum per arm",
+                   "fewer than 5", "sustainability: 1 of 5 done run(s)", "1 of 15 runs are not done (1 failed)",
+                   "ValueError: demo failure: replay exploded", "Table 1", "Table 2", "P(arm > baseline)",
+                   "random", "not people", "real-world policy"):
+        assert phrase in text, phrase
+    failed_row = next(line for line in text.splitlines() if "replay exploded" in line and "|" in line)
+    assert f"`{FAILED[0]}`" in failed_row and f"| {FAILED[1]} |" in failed_row
+    for link in [line.split("](")[1].rstrip(")") for line in text.splitlines() if "](figures/" in line]:
+        assert (sweep[1] / link).is_file()
+    for w in summary["warnings"]:  # every warning of the summary is in the warning block
+        assert w in text
+
+
+# ------------------------------------------------------------------------------------------ the numbers
+def test_arm_numbers_match_stats(summary):
+    assert summary["baseline"] == BASELINE
+    assert summary["arm_order"] == list(ARMS)
+    for k, arm in enumerate(ARMS):
+        info = summary["arms"][arm]
+        assert info["done"] == (4 if arm == FAILED[0] else 5)
+        for m in METRICS:
+            expected = stats.summarize(arm_values(k, m), reps=REPS, seed=0)
+            got = info["metrics"][m]
+            for key in ("n", "mean", "mean_ci", "iqm", "iqm_ci", "std"):
+                assert got[key] == pytest.approx(expected[key]), (arm, m, key)
+    # hand-computed from the invented data: efficiency 2 + k + 0.1 seed, seeds 0..4 -> mean 2.2 + k
+    assert summary["arms"][ARMS[1]]["metrics"]["efficiency"]["mean"] == pytest.approx(3.2)
+    assert summary["arms"][ARMS[1]]["metrics"]["sustainability"]["n"] == 4
+    assert summary["arms"][ARMS[1]]["metrics"]["sustainability"]["nan_dropped"] == 1
+    assert summary["arms"][ARMS[2]]["metrics"]["peace"]["random_mean"] == pytest.approx(1.3)
+
+
+def test_comparisons_match_stats_and_holm_per_metric(summary):
+    comps = summary["comparisons"]
+    assert list(comps) == list(ARMS[1:])
+    for m in METRICS:
+        expected = {ARMS[k]: stats.compare(arm_values(k, m), arm_values(0, m), "mannwhitney", reps=REPS, seed=0)
+                    for k in (1, 2)}
+        for arm, e in expected.items():
+            got = comps[arm][m]
+            for key in ("difference", "difference_ci", "p_value", "prob_improvement"):
+                assert got[key] == pytest.approx(e[key], nan_ok=True), (arm, m, key)
+            assert got["test"] == "mannwhitney"
+        holm = stats.holm([expected[a]["p_value"] for a in ARMS[1:]])
+        assert [comps[a][m]["p_holm"] for a in ARMS[1:]] == pytest.approx(list(holm))
+    # hand-computed from the invented data: arm 2 (seeds 0..3) vs baseline (0..4): 4.15 - 2.2
+    assert comps[ARMS[2]]["efficiency"]["difference"] == pytest.approx(1.95)
+    assert comps[ARMS[2]]["efficiency"]["prob_improvement"] == 1.0  # every arm-2 seed beats every baseline seed
+
+
+def test_holm_over_all_comparisons_and_welch(tmp_path):
+    root = make_sweep(tmp_path / "sweep")
+    s = report_summary(root, test="welch", reps=REPS, holm_family="all")
+    family = [(a, m) for m in METRICS for a in ARMS[1:]]
+    p = [stats.compare(arm_values(ARMS.index(a), m), arm_values(0, m), "welch", reps=REPS)["p_value"]
+         for a, m in family]
+    assert [s["comparisons"][a][m]["p_holm"] for a, m in family] == pytest.approx(list(stats.holm(p)))
+    out = write_report(root, test="welch", reps=REPS, holm_family="all", figures=False)
+    text = (out / "report.md").read_text()
+    assert "Welch's t-test" in text and "one family of every arm × metric comparison" in text
+    assert "Figures were not drawn" in text and not (out / "figures").exists()
+
+
+def test_curves_use_steps_every_seed_logged(summary):
+    c = summary["curves"][ARMS[0]]
+    assert c["env_steps"] == [100, 200, 400, 500]  # seed 1 of this arm lacks step 300
+    assert c["seeds"] == 5
+    # invented curve: final value x step / 500, so the mean at step 500 is the arm's final mean
+    assert c["efficiency"]["mean"][-1] == pytest.approx(summary["arms"][ARMS[0]]["metrics"]["efficiency"]["mean"])
+    assert all(lo <= m <= hi for lo, m, hi in zip(c["efficiency"]["ci_low"], c["efficiency"]["mean"],
+                                                   c["efficiency"]["ci_high"]))
+    assert summary["curves"][ARMS[2]]["seeds"] == 4  # the failed run's partial curve is not used
+    assert summary["curves"][ARMS[2]]["env_steps"] == list(STEPS)
+
+
+def test_numeric_axis_is_found(summary):
+    axes = summary["axes"]
+    assert list(axes) == ["env.params.tag_cost"]  # train.total_steps does not vary
+    assert axes["env.params.tag_cost"]["numeric"]
+    assert axes["env.params.tag_cost"]["groups"] == {"all arms": list(ARMS)}
+
+
+def test_axis_value_of_an_arm_without_the_override_comes_from_config_yaml(tmp_path):
+    root = make_sweep(tmp_path / "sweep", baseline_sets_axis=False)
+    axis = report_summary(root, reps=REPS)["axes"]["env.params.tag_cost"]
+    assert axis["numeric"]
+    assert axis["values"] == dict(zip(ARMS, TAG_COSTS))  # the baseline's 0.0 read from its config.yaml
+
+
+# ------------------------------------------------------------------------------------------ edge cases
+def test_one_arm_sweep_has_no_comparison_table(tmp_path):
+    root = make_sweep(tmp_path / "one", arms=ARMS[:1], seeds=(0, 1), failed=None, nan=None,
+                      pending=[(ARMS[0], 1)])
+    out = write_report(root, reps=REPS)
+    text = (out / "report.md").read_text()
+    assert "No comparison table: the sweep has one arm" in text
+    assert "| p (" not in text
+    s = report_summary(root, reps=REPS)
+    assert s["comparisons"] == {}
+    eff = s["arms"][ARMS[0]]["metrics"]["efficiency"]
+    assert eff["n"] == 1 and eff["mean_ci"] == (eff["mean"], eff["mean"])  # one seed: the CI collapses
+    assert "1 of 2 runs are not done (1 pending)" in text
+    assert "has 1 done seed" in text
+    assert sorted(p.name for p in (out / "figures").glob("bars_*.png")) == sorted(f"bars_{m}.png" for m in METRICS)
+
+
+def test_done_run_without_summary_uses_the_ledger(tmp_path):
+    root = make_sweep(tmp_path / "sweep")
+    (root / "runs" / "run1s3" / "summary.json").unlink()
+    s = report_summary(root, reps=REPS)
+    assert s["arms"][ARMS[1]]["metrics"]["efficiency"]["mean"] == pytest.approx(3.2)
+    assert any("run1s3" in w and "from the ledger" in w for w in s["warnings"])
+
+
+def test_not_a_sweep_directory(tmp_path):
+    with pytest.raises(RunDirError, match="not a sweep directory"):
+        write_report(tmp_path)
+
+
+@pytest.mark.parametrize("kwargs, word", [
+    ({"test": "ttest"}, "test = 'ttest'"),
+    ({"reps": 0}, "reps = 0"),
+    ({"seed": -1}, "seed = -1"),
+    ({"holm_family": "arm"}, "holm_family = 'arm'"),
+], ids=["test", "reps", "seed", "holm_family"])
+def test_bad_arguments(sweep, kwargs, word):
+    with pytest.raises(ConfigError, match=word):
+        report_summary(sweep[0], **kwargs)
+
+
+def test_report_never_imports_torch(sweep):
+    # the `sweep` fixture wrote the report in a subprocess that asserts "torch" not in sys.modules after
+    # the import and after write_report; here: it did finish and wrote its report
+    root, out = sweep
+    assert out == root / "report" and (out / "report.md").is_file()
