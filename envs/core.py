@@ -26,7 +26,7 @@ from pettingzoo.utils.env import ParallelEnv
 
 from envs.errors import ActionError, ParamError
 
-__all__ = ["BatchedGame", "GameParallelEnv"]
+__all__ = ["BatchedGame", "GameParallelEnv", "check_joint_actions"]
 
 
 class BatchedGame:
@@ -60,21 +60,8 @@ class BatchedGame:
 
     def check_actions(self, actions: Any) -> np.ndarray:
         """Return ``actions`` as a ``(B, N)`` int64 array or raise :class:`ActionError`."""
-        a = np.asarray(actions)
-        shape = (self.num_envs, self.num_agents)
-        if a.shape != shape:
-            raise ActionError(f"{self.name}: actions have shape {a.shape}; expected {shape} (copies, agents)")
-        if not np.issubdtype(a.dtype, np.integer):
-            if not (np.issubdtype(a.dtype, np.floating) and np.all(a == np.round(a))):
-                raise ActionError(f"{self.name}: actions must be integers, got dtype {a.dtype}")
-        a = a.astype(np.int64, copy=False)
-        bad = (a < 0) | (a >= self.action_space.n)
-        if bad.any():
-            b, i = np.argwhere(bad)[0]
-            raise ActionError(f"{self.name}: action {a[b, i]} for {self.possible_agents[i]} (copy {b}) is "
-                              f"not allowed; expected an integer in [0, {self.action_space.n - 1}] "
-                              f"({', '.join(self.action_names)})")
-        return a
+        return check_joint_actions(actions, self.name, self.num_envs, self.possible_agents, self.action_space.n,
+                                   self.action_names)
 
     @staticmethod
     def check_num_envs(name: str, num_envs: Any) -> int:
@@ -107,6 +94,27 @@ class BatchedGame:
 
     def render_ansi(self, index: int = 0) -> str:
         raise NotImplementedError
+
+
+def check_joint_actions(actions: Any, name: str, num_envs: int, agents: list[str] | tuple[str, ...],
+                        num_actions: int, action_names: tuple[str, ...] | None = None) -> np.ndarray:
+    """``actions`` as a ``(num_envs, len(agents))`` int64 array in ``[0, num_actions)``, or
+    :class:`ActionError` naming the first bad entry (its agent and copy) and what is allowed."""
+    a = np.asarray(actions)
+    shape = (num_envs, len(agents))
+    if a.shape != shape:
+        raise ActionError(f"{name}: actions have shape {a.shape}; expected {shape} (copies, agents)")
+    if not np.issubdtype(a.dtype, np.integer):
+        if not (np.issubdtype(a.dtype, np.floating) and np.all(a == np.round(a))):
+            raise ActionError(f"{name}: actions must be integers, got dtype {a.dtype}")
+    a = a.astype(np.int64, copy=False)
+    bad = (a < 0) | (a >= num_actions)
+    if bad.any():
+        b, i = np.argwhere(bad)[0]
+        names = f" ({', '.join(action_names)})" if action_names else ""
+        raise ActionError(f"{name}: action {a[b, i]} for {agents[i]} (copy {b}) is not allowed; expected an "
+                          f"integer in [0, {num_actions - 1}]{names}")
+    return a
 
 
 class GameParallelEnv(ParallelEnv):

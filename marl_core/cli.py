@@ -200,10 +200,11 @@ def _train(args: argparse.Namespace) -> int:
 
 def _evaluate(args: argparse.Namespace) -> int:
     from marl_core import train
+    from marl_core.files import finite
 
     res = train.evaluate_run(args.run_dir, episodes=args.episodes, gif=args.gif)
     if args.json:
-        print(json.dumps(train._finite(res), indent=2, sort_keys=True))
+        print(json.dumps(finite(res), indent=2, sort_keys=True))
     else:
         print(f"run: {args.run_dir}  ({res['eval_episodes']} episodes, exploration off)")
         print(_table(res))

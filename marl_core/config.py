@@ -82,7 +82,6 @@ import json
 import keyword
 import os
 import re
-import tempfile
 import types
 import typing
 from collections.abc import Iterable, Sequence
@@ -105,6 +104,7 @@ import envs
 from envs.errors import ParamError
 from envs.params import nearest, resolve
 from marl_core.errors import ConfigError
+from marl_core.files import atomic_write
 
 __all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "TrainConfig", "LogConfig",
            "load_config", "parse_config", "apply_overrides", "config_to_dict", "dump_config",
@@ -790,13 +790,4 @@ def dump_config(cfg: RunConfig, path: str | os.PathLike) -> None:
     body = yaml.dump(config_to_dict(cfg), Dumper=_Dumper, sort_keys=False, default_flow_style=False,
                      allow_unicode=True, width=100)
     text = f"# resolved marl-core run config; config_hash {config_hash(cfg)}\n{body}"
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8") as f:
-            f.write(text)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    atomic_write(path, lambda f: f.write(text))

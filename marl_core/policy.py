@@ -8,8 +8,6 @@ seated in one team. Files are written atomically and read with ``torch.load(...,
 
 from __future__ import annotations
 
-import os
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -17,6 +15,7 @@ import numpy as np
 import torch
 
 from marl_core.errors import CheckpointError
+from marl_core.files import atomic_write
 from marl_core.nets import AgentNet, build_net
 
 __all__ = ["AgentPolicy", "POLICY_FORMAT", "atomic_torch_save", "safe_torch_load"]
@@ -26,19 +25,7 @@ POLICY_FORMAT = 1
 
 def atomic_torch_save(obj: Any, path: str | Path) -> Path:
     """``torch.save`` to a temp file in the same directory, then rename: a crash never leaves half a file."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=path.name + ".", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as f:
-            torch.save(obj, f)
-            f.flush()
-            os.fsync(f.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
-    return path
+    return atomic_write(path, lambda f: torch.save(obj, f), binary=True)
 
 
 def safe_torch_load(path: str | Path, what: str) -> dict[str, Any]:

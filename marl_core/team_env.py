@@ -40,7 +40,7 @@ import numpy as np
 from gymnasium import spaces
 
 import envs
-from envs.errors import ActionError
+from envs.core import check_joint_actions
 from envs.params import nearest
 from marl_core.errors import EnvAdapterError
 from marl_core.spec import TeamSpec
@@ -166,20 +166,7 @@ class TeamEnv:
 
     def _check_actions(self, actions: Any) -> np.ndarray:
         """``actions`` as a (B, N) int64 array in [0, num_actions), or :class:`envs.ActionError`."""
-        a = np.asarray(actions)
-        shape = (self.num_envs, self.spec.num_agents)
-        if a.shape != shape:
-            raise ActionError(f"{self.name}: actions have shape {a.shape}; expected {shape} (copies, agents)")
-        if not np.issubdtype(a.dtype, np.integer):
-            if not (np.issubdtype(a.dtype, np.floating) and np.all(a == np.round(a))):
-                raise ActionError(f"{self.name}: actions must be integers, got dtype {a.dtype}")
-        a = a.astype(np.int64, copy=False)
-        bad = (a < 0) | (a >= self.spec.num_actions)
-        if bad.any():
-            b, i = np.argwhere(bad)[0]
-            raise ActionError(f"{self.name}: action {a[b, i]} for {self.spec.agents[i]} (copy {b}) is not "
-                              f"allowed; expected an integer in [0, {self.spec.num_actions - 1}]")
-        return a
+        return check_joint_actions(actions, self.name, self.num_envs, self.spec.agents, self.spec.num_actions)
 
     def _check_index(self, index: Any) -> int:
         if isinstance(index, bool) or not isinstance(index, (int, np.integer)) \

@@ -25,8 +25,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import tempfile
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -37,6 +35,7 @@ import torch
 from envs.metrics import METRIC_NAMES
 from marl_core.config import RunConfig, config_hash, dump_config, load_config
 from marl_core.errors import CheckpointError, RunDirError
+from marl_core.files import atomic_write, finite, write_json
 from marl_core.learners import build_learner
 from marl_core.policy import atomic_torch_save, safe_torch_load
 from marl_core.replay import Replay
@@ -44,30 +43,10 @@ from marl_core.rollout import Collector, evaluate, random_policy
 from marl_core.targets import linear_schedule
 from marl_core.team_env import make_team_env
 
-__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "write_json", "load_run"]
+__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run"]
 
 CHECKPOINT_FORMAT = 1
 EVAL_SEED_OFFSET = 1_000_003  # evaluation episodes use seeds apart from training's
-
-
-# ---------------------------------------------------------------------- small file helpers
-def write_json(path: Path, data: Any) -> None:
-    """Write JSON atomically (temp file + rename); NaN becomes null so any JSON reader can read it."""
-    text = json.dumps(_finite(data), indent=2, sort_keys=True)
-    fd, tmp = tempfile.mkstemp(prefix=path.name + ".", suffix=".tmp", dir=path.parent)
-    with os.fdopen(fd, "w") as f:
-        f.write(text + "\n")
-    os.replace(tmp, path)
-
-
-def _finite(x: Any) -> Any:
-    if isinstance(x, dict):
-        return {k: _finite(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_finite(v) for v in x]
-    if isinstance(x, float) and not math.isfinite(x):
-        return None
-    return x
 
 
 def _result(ev: dict[str, Any]) -> dict[str, Any]:
@@ -114,7 +93,7 @@ class _Run:
             "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
             "counters": {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
                          "evals": self.evals},
-            "random": json.dumps(_finite(self.random)), "last_eval": json.dumps(_finite(self.last_eval)),
+            "random": json.dumps(finite(self.random)), "last_eval": json.dumps(finite(self.last_eval)),
             "learner": self.learner.state_dict(), "replay_rng": self.replay.rng_state(),
             "torch_rng": torch.get_rng_state(),
         }, self.out / "checkpoints" / "last.pt")
@@ -142,10 +121,7 @@ class _Run:
         if purge_step is not None and metrics.exists():  # drop what was logged after the checkpoint
             keep = [line for line in metrics.read_text().splitlines()
                     if line.strip() and json.loads(line)["env_steps"] <= purge_step]
-            fd, tmp = tempfile.mkstemp(dir=self.out, suffix=".tmp")
-            with os.fdopen(fd, "w") as f:
-                f.write("".join(line + "\n" for line in keep))
-            os.replace(tmp, metrics)
+            atomic_write(metrics, lambda f: f.write("".join(line + "\n" for line in keep)))
         if self.cfg.log.tensorboard:
             from torch.utils.tensorboard import SummaryWriter
 
@@ -160,7 +136,7 @@ class _Run:
     def log_eval(self, ev: dict[str, Any]) -> None:
         row = {"env_steps": self.env_steps, "episodes": self.episodes, **_result(ev)}
         with open(self.out / "metrics.jsonl", "a") as f:
-            f.write(json.dumps(_finite(row), sort_keys=True) + "\n")
+            f.write(json.dumps(finite(row), sort_keys=True) + "\n")
         for m in (*METRIC_NAMES, "return_mean"):
             self.scalar(f"eval/{m}", ev[m])
         for a, r in ev["returns"].items():

@@ -210,25 +210,32 @@ class Ledger:
                          "attempts = attempts + 1, started = ?, finished = NULL, duration = NULL, "
                          "metrics = NULL, error = NULL, worker = ?", (time.time(), str(worker)))
 
-    def mark_done(self, run_id: str, metrics: dict[str, Any]) -> None:
-        """``running`` → ``done`` with the final metrics (NaN stored as null).
+    def mark_done(self, run_id: str, metrics: dict[str, Any], started: float | None = None) -> None:
+        """``running`` → ``done`` with the final metrics (NaN stored as null). ``started``: when the run
+        really began (unix time), for backends that queue runs before they start (Ray).
 
         Raises:
             LedgerError: no such run, or it is not running.
         """
-        now = time.time()
-        self._transition(run_id, "done", "running", "finished = ?, duration = ? - started, metrics = ?",
-                         (now, now, to_json(metrics)))
+        self._finish(run_id, "done", "metrics", to_json(metrics), started)
 
-    def mark_failed(self, run_id: str, error: str) -> None:
-        """``running`` → ``failed`` with the error text (a traceback).
+    def mark_failed(self, run_id: str, error: str, started: float | None = None) -> None:
+        """``running`` → ``failed`` with the error text (a traceback); ``started`` as in :meth:`mark_done`.
 
         Raises:
             LedgerError: no such run, or it is not running.
         """
+        self._finish(run_id, "failed", "error", str(error), started)
+
+    def _finish(self, run_id: str, state: str, column: str, value: str, started: float | None) -> None:
         now = time.time()
-        self._transition(run_id, "failed", "running", "finished = ?, duration = ? - started, error = ?",
-                         (now, now, str(error)))
+        if started is None:
+            self._transition(run_id, state, "running", f"finished = ?, duration = ? - started, {column} = ?",
+                             (now, now, value))
+        else:
+            self._transition(run_id, state, "running",
+                             f"started = ?, finished = ?, duration = ? - ?, {column} = ?",
+                             (float(started), now, now, float(started), value))
 
     def requeue(self, states: Iterable[str] = ("running",), run_ids: Iterable[str] | None = None) -> int:
         """Put every run in one of ``states`` back to ``pending`` (``("running",)``: runs a dead sweep left

@@ -12,7 +12,8 @@ Backends:
   each). Children die with the sweep process (Linux ``PR_SET_PDEATHSIG``), so a killed sweep leaves no
   orphan writing into a run directory.
 * ``ray`` (``pip install "marl-core[ray]"``): each run is a Ray task with one CPU and up to two retries when
-  a worker crashes. ``address`` joins an existing cluster; otherwise a local one starts on 127.0.0.1.
+  a worker crashes (a retry is not counted as a new attempt in the ledger). ``address`` joins an existing
+  cluster; otherwise a local one starts on 127.0.0.1.
   Workers write run directories at the sweep directory's path, so on a multi-machine cluster the sweep
   directory must be on storage every node mounts at the same path (e.g. NFS); the final metrics come back
   to the driver, which alone writes the ledger.
@@ -218,11 +219,12 @@ def _run_local(todo: list[dict], configs: dict, out: Path, ledger: Ledger, worke
             _report(ledger, workers, progress)
 
 
-def _ray_task(config: dict[str, Any], run_dir: str) -> tuple[str, Any]:
+def _ray_task(config: dict[str, Any], run_dir: str) -> tuple[str, Any, float]:
+    started = time.time()  # Ray queues tasks; the ledger's start time is when the run really began
     try:
-        return "done", run_one(config, run_dir)
+        return "done", run_one(config, run_dir), started
     except Exception:  # noqa: BLE001 - recorded as a failed run
-        return "failed", traceback.format_exc()
+        return "failed", traceback.format_exc(), started
 
 
 def _run_ray(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers: int, address: str | None,
@@ -254,13 +256,13 @@ def _run_ray(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers
             for ref in ready:
                 rid = pending.pop(ref)
                 try:
-                    state, value = ray.get(ref)
+                    state, value, started = ray.get(ref)
                 except Exception:  # noqa: BLE001 - a task that crashed past its retries
-                    state, value = "failed", traceback.format_exc()
+                    state, value, started = "failed", traceback.format_exc(), None
                 if state == "done":
-                    ledger.mark_done(rid, value)
+                    ledger.mark_done(rid, value, started=started)
                 else:
-                    ledger.mark_failed(rid, value)
+                    ledger.mark_failed(rid, value, started=started)
                 _report(ledger, workers, progress)
     finally:
         if started_here:
