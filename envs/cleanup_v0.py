@@ -109,6 +109,7 @@ class CleanupGame(GridGame):
                              f"{p['depletion_threshold']}")
         self.river = self.layout.river
         self.river_cells = int(self.river.sum())
+        self._river_f, self._river_ctr = self._cells(self.river)
 
     def _check_layout(self, layout: Layout) -> None:
         for layer, what in ((layout.orchard, "orchard cells ('+' or '-')"), (layout.river, "river cells "
@@ -128,14 +129,15 @@ class CleanupGame(GridGame):
 
     def _grow(self) -> None:
         B = self.num_envs
-        waste = self.interior(self.waste)
-        b, y, x, u = self._draw(_S_WASTE, self.river & ~waste)
+        waste_f = self.waste.reshape(B, -1)
+        b, cell, u = self._draw(_S_WASTE, ~waste_f[:, self._river_f], self._river_f, self._river_ctr)
         keep = u < self.params["waste_spawn_prob"]
-        self.waste[b[keep], y[keep], x[keep]] = True
+        waste_f[b[keep], cell[keep]] = True
         prob = self.spawn_prob(self.waste_fraction())
-        b, y, x, u = self._draw(_S_GROW, self._free_orchard() & (prob > 0)[:, None, None])
+        b, cell, u = self._draw(_S_GROW, self._free_orchard() & (prob > 0)[:, None], self._orchard_f,
+                                self._orchard_ctr)
         keep = u < prob[b]
-        self.resource.reshape(B, -1)[b[keep], y[keep] * self.Wp + x[keep]] = True
+        self.resource.reshape(B, -1)[b[keep], cell[keep]] = True
 
 
 class CleanupParallelEnv(GameParallelEnv):

@@ -89,6 +89,16 @@ def _mix(z: np.ndarray) -> np.ndarray:
     return z ^ (z >> np.uint64(31))
 
 
+def _counter(idx: np.ndarray) -> np.ndarray:
+    """The index half of a draw's input, ``(idx + 1) * golden`` (uint64, wrapping): constant per index."""
+    return (np.asarray(idx).astype(np.uint64) + np.uint64(1)) * np.uint64(_GOLDEN)
+
+
+def _unit(z: np.ndarray) -> np.ndarray:
+    """Uniform [0, 1) float64 from the top 53 bits of uint64 hashes."""
+    return (z >> np.uint64(11)).astype(np.float64) * (1.0 / (1 << 53))
+
+
 def _odd(v: int) -> str | None:
     return None if v % 2 == 1 else "an odd integer (lanes centred on the agent's line)"
 
@@ -178,6 +188,10 @@ class GridGame(BatchedGame):
         self._dir_f = _DIRS[:, 0] * self.Wp + _DIRS[:, 1]  # flat step of each direction
         self._beam_tag = self._beam_offsets(*beams[0])
         self._beam_clean = self._beam_offsets(*beams[1]) if self.has_clean_beam else None
+        # (channel, bit) of the map channels some cell can show; the others are zero in every observation
+        can = {_BIT["resource"], _BIT["agents"]} | ({_BIT["waste"]} if self.has_clean_beam else set())
+        can |= {i for i in range(8) if (static >> i & 1).any()}
+        self._obs_bits = [(c, int(s)) for c, s in enumerate(_SHIFTS.ravel()) if s in can]
 
         # dynamic state, all padded and flat-indexable: cell = (y + P) * Wp + (x + P)
         self._bi = np.arange(B)[:, None]
@@ -192,7 +206,14 @@ class GridGame(BatchedGame):
         self._occ = np.zeros((B, self.Hp * self.Wp), np.int8)  # agent index + 1, 0 = empty
         self._bits = np.zeros((B, self.Hp, self.Wp), np.uint8)
         self._windows = sliding_window_view(self._bits, self.k, axis=(1, 2))
+        self._orchard_f, self._orchard_ctr = self._cells(self.orchard)  # (K,), (K,)
+        self._bits_tmp = np.zeros_like(self._bits)
+        self._cell_base = np.arange(B)[:, None] * (self.Hp * self.Wp)  # (B, 1) flat start of each copy
+        self._agent_ids = np.broadcast_to(np.arange(1, N + 1, dtype=np.int8), (B, N))
         self._rngs: list[np.random.Generator] | None = None
+        self._keys_t: tuple[int, np.ndarray] | None = None  # (step, _stream_keys()) cache
+        self._ctr_move = _counter(np.arange(N))  # (N,) draw counters of the agents
+        self._ctr_respawn = _counter(np.arange(N + S))  # (N + S,) agents, then spawn points
         self.last_beams: list[tuple[str, np.ndarray, np.ndarray, np.ndarray]] = []  # kind, copy, cells, reach
 
     # ------------------------------------------------------------------ set-up helpers
@@ -215,12 +236,24 @@ class GridGame(BatchedGame):
         return out
 
     # ------------------------------------------------------------------ randomness
+    def _stream_keys(self) -> np.ndarray:
+        """(B, streams) uint64 key of every copy and stream for this step; made once per step (reset clears
+        the cache, as the keys change there)."""
+        if self._keys_t is None or self._keys_t[0] != self.t:
+            salt = [((self.t * _N_STREAMS + s + 1) * _GOLDEN) & _MASK64 for s in range(_N_STREAMS)]
+            self._keys_t = (self.t, _mix(self.key[:, None] + np.array(salt, np.uint64)))
+        return self._keys_t[1]
+
     def _uniform(self, stream: int, b: np.ndarray, idx: np.ndarray) -> np.ndarray:
         """Uniform [0, 1) draws for copies ``b`` at indices ``idx`` (same shape), this step, this stream."""
-        salt = np.uint64(((self.t * _N_STREAMS + stream + 1) * _GOLDEN) & _MASK64)
-        base = _mix(self.key + salt)  # (B,)
-        z = _mix(base[b] + (idx.astype(np.uint64) + np.uint64(1)) * np.uint64(_GOLDEN))
-        return (z >> np.uint64(11)).astype(np.float64) * (1.0 / (1 << 53))
+        return self._uniform_ctr(stream, b, _counter(idx))
+
+    def _uniform_ctr(self, stream: int, b: np.ndarray | None, ctr: np.ndarray) -> np.ndarray:
+        """:meth:`_uniform` with the index half given as ``ctr = _counter(idx)``. ``b=None`` draws for every
+        copy: the result is ``(B, *ctr.shape)``."""
+        keys = self._stream_keys()[:, stream]
+        base = keys.reshape((-1,) + (1,) * ctr.ndim) if b is None else keys[b]
+        return _unit(_mix(base + ctr))
 
     # ------------------------------------------------------------------ reset
     def reset(self, seed: int | None = None):
@@ -239,6 +272,7 @@ class GridGame(BatchedGame):
         self.out[:] = False
         self.frozen_left[:] = 0
         self.t = 0
+        self._keys_t = None  # the keys changed
         self.last_beams = []
         self._place_agents()
         zeros = np.zeros((self.num_envs, N), np.int64)
@@ -261,10 +295,13 @@ class GridGame(BatchedGame):
         free = ~self.wall_f[target] & (self._occ[bi, target] == 0)
         want = moving & free
         if want.any():
-            prio = self._uniform(_S_MOVE, np.broadcast_to(bi, (B, N)), np.broadcast_to(np.arange(N), (B, N)))
-            rival = ((target[:, :, None] == target[:, None, :]) & want[:, None, :]
-                     & (prio[:, None, :] > prio[:, :, None]))
-            won = want & ~rival.any(axis=2)
+            # draw priorities only if two agents want one cell: draws are counter-based, so a draw not
+            # made changes no other draw
+            same = (target[:, :, None] == target[:, None, :]) & want[:, None, :] & want[:, :, None]
+            won = want
+            if np.count_nonzero(same) > np.count_nonzero(want):  # more than the diagonal
+                prio = self._uniform_ctr(_S_MOVE, None, self._ctr_move)
+                won = want & ~(same & (prio[:, None, :] > prio[:, :, None])).any(axis=2)
             self.cell = np.where(won, target, self.cell)
             self._place_agents()
 
@@ -334,8 +371,8 @@ class GridGame(BatchedGame):
     def _place_agents(self) -> None:
         """Rebuild the occupancy map from the agents on the map."""
         self._occ.fill(0)
-        b, n = np.nonzero(~self.out)
-        self._occ[b, self.cell[b, n]] = n + 1
+        live = ~self.out
+        self._occ.reshape(-1)[(self._cell_base + self.cell)[live]] = self._agent_ids[live]
 
     def _respawn(self, waiting: np.ndarray) -> None:
         """Put ``waiting`` agents back at distinct random free spawn points; if too few are free, the agents
@@ -346,13 +383,13 @@ class GridGame(BatchedGame):
         B, N = waiting.shape
         S = len(self.spawn_f)
         bi = self._bi
-        u_agent = self._uniform(_S_RESPAWN, np.broadcast_to(bi, (B, N)), np.broadcast_to(np.arange(N), (B, N)))
-        u_spawn = self._uniform(_S_RESPAWN, np.broadcast_to(bi, (B, S)), np.broadcast_to(N + np.arange(S), (B, S)))
+        u = self._uniform_ctr(_S_RESPAWN, None, self._ctr_respawn)  # (B, N + S)
+        u_agent, u_spawn = u[:, :N], u[:, N:]
         taken = self._occ[:, self.spawn_f] != 0  # (B, S)
         rank = np.argsort(np.argsort(np.where(waiting, u_agent, 2.0), axis=1), axis=1)  # waiting agents first
         free_first = np.argsort(np.where(taken, 2.0, u_spawn), axis=1)
         ok = waiting & (rank < (~taken).sum(axis=1, keepdims=True))
-        chosen = np.take_along_axis(free_first, np.minimum(rank, S - 1), axis=1)
+        chosen = free_first[bi, np.minimum(rank, S - 1)]
         self.cell = np.where(ok, self.spawn_f[chosen], self.cell)
         self.out &= ~ok
         self._place_agents()
@@ -361,27 +398,34 @@ class GridGame(BatchedGame):
         """Resources (and waste) appear; each game implements its rule."""
         raise NotImplementedError
 
-    def _free_orchard(self) -> np.ndarray:
-        """(B, H, W) orchard cells with no resource and no agent on them."""
-        P, H, W = self.P, self.H, self.W
-        occ = self._occ.reshape(self.num_envs, self.Hp, self.Wp)[:, P:P + H, P:P + W]
-        return self.orchard & ~self.resource[:, P:P + H, P:P + W] & (occ == 0)
+    def _cells(self, layer: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Padded flat index and draw counter of the True cells of an (H, W) layer, in row-major order."""
+        y, x = np.nonzero(layer)
+        return (y + self.P) * self.Wp + x + self.P, _counter(y * self.W + x)
 
-    def _draw(self, stream: int, cand: np.ndarray) -> tuple[np.ndarray, ...]:
-        """Copy, padded row, padded column and a uniform draw for every True cell of ``cand`` (B, H, W)."""
-        b, y, x = np.nonzero(cand)
-        return b, y + self.P, x + self.P, self._uniform(stream, b, y * self.W + x)
+    def _free_orchard(self) -> np.ndarray:
+        """(B, K) whether each orchard cell (``self._orchard_f``) has no resource and no agent on it."""
+        cells = self._orchard_f
+        return ~self.resource.reshape(self.num_envs, -1)[:, cells] & (self._occ[:, cells] == 0)
+
+    def _draw(self, stream: int, cand: np.ndarray, cells: np.ndarray,
+              ctr: np.ndarray) -> tuple[np.ndarray, ...]:
+        """Copy, padded flat cell and a uniform draw for every True entry of ``cand`` (B, K), a mask over the
+        K listed ``cells`` with draw counters ``ctr`` (see :meth:`_cells`). Listing the few cells where a
+        rule can act, rather than scanning the map, is what keeps growth cheap."""
+        b, j = np.nonzero(cand)
+        return b, cells[j], self._uniform_ctr(stream, b, ctr[j])
 
     # ------------------------------------------------------------------ observation
     def _pack(self) -> np.ndarray:
         """Refresh the packed map (one bit per map channel) of every copy and return it."""
         bits = self._bits
-        np.left_shift(self.resource, _BIT["resource"], out=bits, dtype=np.uint8)
+        # x * 2**k rather than x << k: the same bits, but numpy vectorises uint8 products, not left shifts
+        np.multiply(self.resource.view(np.uint8), np.uint8(1 << _BIT["resource"]), out=bits)
         bits |= self._static_bits
         if self.has_clean_beam:
-            bits |= self.waste.view(np.uint8) << _BIT["waste"]
-        b, n = np.nonzero(~self.out)
-        bits.reshape(self.num_envs, -1)[b, self.cell[b, n]] |= np.uint8(1 << _BIT["agents"])
+            bits |= np.multiply(self.waste.view(np.uint8), np.uint8(1 << _BIT["waste"]), out=self._bits_tmp)
+        bits.reshape(-1)[(self._cell_base + self.cell)[~self.out]] |= np.uint8(1 << _BIT["agents"])
         return bits
 
     def _observe(self) -> np.ndarray:
@@ -389,26 +433,37 @@ class GridGame(BatchedGame):
         B, N = self.cell.shape
         P, bi = self.P, self._bi
         y, x = np.divmod(self.cell, self.Wp)
-        if self.params["full_view"]:
+        full = self.params["full_view"]
+        if full:
             win = np.broadcast_to(bits[:, None, P:P + self.H, P:P + self.W], (B, N, self.H, self.W))
-            cy, cx = y - P, x - P
         else:
             r = self.params["view_radius"]
             win = self._windows[bi, y - r, x - r]
-            cy = cx = np.full((B, N), r)
-        obs = (win[:, :, None] >> _SHIFTS) & np.uint8(1)
-        ab, an = np.nonzero(~self.out)
-        acy, acx = cy[ab, an], cx[ab, an]
-        obs[ab, an, _CH["agents"], acy, acx] = 0
-        obs[ab, an, _CH["self"], acy, acx] = 1
-        f = self.facing[ab, an]
-        ay, ax = acy + _DIRS[f, 0], acx + _DIRS[f, 1]
-        if self.params["full_view"]:  # a window always holds the cell ahead; the bare map may not
-            inside = (ay >= 0) & (ay < self.H) & (ax >= 0) & (ax < self.W)
-            ab, an, ay, ax = ab[inside], an[inside], ay[inside], ax[inside]
-        obs[ab, an, _CH["ahead"], ay, ax] = 1
-        fb, fn = np.nonzero(self.out)
-        obs[fb, fn, _CH["frozen"]] = 1
+        # one channel at a time (broadcasting the shift over a channel axis is several times slower);
+        # channels that no cell can show stay zero
+        C, (kh, kw) = len(CHANNELS), self.k
+        obs = np.zeros((B, N, C, kh, kw), np.uint8)
+        for c, s in self._obs_bits:
+            np.bitwise_and(win >> np.uint8(s), np.uint8(1), out=obs[:, :, c])
+        # the observer's own channels, written through flat indices: row = b * N + n of each agent on the map
+        live = ~self.out
+        rows = np.flatnonzero(live)
+        if full:
+            cy, cx = y.reshape(-1)[rows] - P, x.reshape(-1)[rows] - P
+        else:
+            cy = cx = r
+        f = self.facing.reshape(-1)[rows]
+        ay, ax = cy + _DIRS[f, 0], cx + _DIRS[f, 1]
+        flat, K = obs.reshape(-1), kh * kw
+        at = rows * (C * K) + cy * kw + cx
+        flat[at + _CH["agents"] * K] = 0
+        flat[at + _CH["self"] * K] = 1
+        ahead = rows * (C * K) + _CH["ahead"] * K + ay * kw + ax
+        if full:  # a window always holds the cell ahead; the bare map may not
+            ahead = ahead[(ay >= 0) & (ay < self.H) & (ax >= 0) & (ax < self.W)]
+        flat[ahead] = 1
+        if not live.all():
+            obs.reshape(B * N, C, K)[np.flatnonzero(self.out), _CH["frozen"]] = 1
         return obs
 
     def state(self) -> np.ndarray:

@@ -22,8 +22,8 @@ Method. Everything runs on one thread: ``OMP_NUM_THREADS``, ``OPENBLAS_NUM_THREA
 in which case the setting could not take effect). For each measurement the env is reset with a fixed seed
 and warmed up for a tenth of the time budget, which also estimates its speed. From that estimate the number
 of steps per repeat is chosen so that ``repeats`` timed repeats fill ``--seconds``; when a repeat holds at
-least half an episode the count is rounded to whole episodes, so every repeat runs the same mix of steps
-and resets. Each repeat starts from the same seeded reset (not timed) and replays the same actions; an
+least half an episode the count is rounded down to whole episodes (at least one), so every repeat runs
+the same mix of steps and resets. Each repeat starts from the same seeded reset (not timed) and replays the same actions; an
 episode that ends by truncation is reset inside the timed loop, because resetting is part of running
 episodes. The figure reported is the best (fastest) repeat: noise on a shared machine only ever slows a
 run down, so the minimum time is the best estimate of the code's own cost. Every repeat's wall time
@@ -78,7 +78,7 @@ def _plan_steps(rate_steps_per_s: float, seconds: float, repeats: int, max_cycle
     """Steps per repeat so that ``repeats`` repeats take about ``seconds``; whole episodes when long enough."""
     steps = max(1, int(rate_steps_per_s * seconds / repeats))
     if steps >= max_cycles // 2:
-        steps = max(1, round(steps / max_cycles)) * max_cycles
+        steps = max(1, steps // max_cycles) * max_cycles
     return steps
 
 
@@ -242,9 +242,18 @@ def _positive(kind):
     return parse
 
 
+def _non_negative_int(text: str) -> int:
+    value = int(text)
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}")
+    return value
+
+
 def _table(report: dict[str, Any]) -> str:
+    load = report["load_average"]["before"]
     lines = [f"python {report['python']}  numpy {report['numpy']}  {report['platform']}",
-             f"cpu {report['cpu']}  (one thread; best of {report[GAMES[0]]['repeats']['k']} repeats)", "",
+             f"cpu {report['cpu']} x {report['cpu_count']}, load {load[0] if load else '?'} "
+             f"(one thread; best of {report[GAMES[0]]['repeats']['k']} repeats)", "",
              f"{'game':<12}{'layout':<16}{'batched agent-steps/s':>23}{'single agent-steps/s':>22}"
              f"{'ratio':>8}"]
     for game in GAMES:
@@ -270,16 +279,23 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seconds", type=_positive(float), default=3.0,
                         help="time budget of each measurement (warm-up included), default 3")
     parser.add_argument("--repeats", type=_positive(int), default=3, help="timed repeats; the best counts")
-    parser.add_argument("--seed", type=int, default=0, help="seed of the envs and of the random actions")
+    parser.add_argument("--seed", type=_non_negative_int, default=0,
+                        help="seed of the envs and of the random actions")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     args = parser.parse_args(argv)
 
     threads = _single_thread()
     import numpy as np
 
+    from envs import EnvError
+
     load_before = _load_average()
-    results = {game: bench_game(game, args.num_envs, args.agents, args.view_radius, args.seconds,
-                                args.repeats, args.seed) for game in GAMES}
+    try:
+        results = {game: bench_game(game, args.num_envs, args.agents, args.view_radius, args.seconds,
+                                    args.repeats, args.seed) for game in GAMES}
+    except EnvError as err:  # a game rejected an option (e.g. more agents than spawn points)
+        print(f"bench_env: {err}", file=sys.stderr)
+        return 2
     report = {
         "python": platform.python_version(),
         "numpy": np.__version__,
