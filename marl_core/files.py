@@ -24,6 +24,7 @@ def atomic_write(path: str | Path, write: Callable[[IO], None], binary: bool = F
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions of a new file
         with os.fdopen(fd, "wb" if binary else "w", **({} if binary else {"encoding": "utf-8"})) as f:
             write(f)
             f.flush()
@@ -33,6 +34,12 @@ def atomic_write(path: str | Path, write: Callable[[IO], None], binary: bool = F
         Path(tmp).unlink(missing_ok=True)
         raise
     return path
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def finite(x: Any) -> Any:

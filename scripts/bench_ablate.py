@@ -20,6 +20,8 @@ import tempfile
 import time
 from pathlib import Path
 
+from _machine import cpu_name, load_average
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
@@ -35,7 +37,7 @@ def main(argv: list[str] | None = None) -> int:
     runs = len(load_spec(args.spec).runs)
     result: dict = {"spec": os.path.relpath(args.spec, ROOT), "runs": runs, "cpu_count": os.cpu_count(),
                     "python": platform.python_version(), "platform": platform.platform(),
-                    "loadavg_before": os.getloadavg(), "target_ratio": 1.8}
+                    "cpu": cpu_name(), "loadavg_before": load_average(), "target_ratio": 1.8}
     for workers in (1, 2):
         with tempfile.TemporaryDirectory() as tmp:
             t0 = time.perf_counter()
@@ -43,7 +45,7 @@ def main(argv: list[str] | None = None) -> int:
             result[f"workers_{workers}_s"] = round(time.perf_counter() - t0, 2)
             result[f"workers_{workers}_done"] = counts.get("done", 0)
     result["ratio"] = round(result["workers_1_s"] / result["workers_2_s"], 3)
-    result["loadavg_after"] = os.getloadavg()
+    result["loadavg_after"] = load_average()
     if args.json:
         print(json.dumps(result, indent=2))
     else:

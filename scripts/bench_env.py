@@ -52,6 +52,8 @@ import sys
 import time
 from typing import Any
 
+from _machine import cpu_name, load_average
+
 __all__ = ["GAMES", "TARGETS", "measure_batched", "measure_single", "bench_game", "main"]
 
 GAMES: tuple[str, ...] = ("harvest_v0", "cleanup_v0")
@@ -209,25 +211,6 @@ def bench_game(game: str, num_envs: int, num_agents: int, view_radius: int, seco
     }
 
 
-def _cpu_name() -> str:
-    try:
-        with open("/proc/cpuinfo") as f:
-            for line in f:
-                if line.startswith("model name"):
-                    return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
-
-
-def _load_average() -> list[float] | None:
-    """1, 5 and 15 minute load averages (None where the OS has none): other work on the machine."""
-    try:
-        return [round(v, 2) for v in os.getloadavg()]
-    except (AttributeError, OSError):
-        return None
-
-
 def _targets_met(results: dict[str, dict[str, Any]]) -> dict[str, dict[str, bool]]:
     return {game: {key: results[game][key] >= low for key, low in want.items()}
             for game, want in TARGETS.items() if game in results}
@@ -289,7 +272,7 @@ def main(argv: list[str] | None = None) -> int:
 
     from envs import EnvError
 
-    load_before = _load_average()
+    load_before = load_average()
     try:
         results = {game: bench_game(game, args.num_envs, args.agents, args.view_radius, args.seconds,
                                     args.repeats, args.seed) for game in GAMES}
@@ -300,9 +283,9 @@ def main(argv: list[str] | None = None) -> int:
         "python": platform.python_version(),
         "numpy": np.__version__,
         "platform": platform.platform(),
-        "cpu": _cpu_name(),
+        "cpu": cpu_name(),
         "cpu_count": os.cpu_count(),
-        "load_average": {"before": load_before, "after": _load_average()},
+        "load_average": {"before": load_before, "after": load_average()},
         "threads": threads,
         "seconds_per_measurement": args.seconds,
         "seed": args.seed,

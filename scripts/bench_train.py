@@ -81,6 +81,8 @@ import time
 from pathlib import Path
 from typing import Any
 
+from _machine import cpu_name, load_average
+
 __all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measure_loop", "measure_bare",
            "bench_learner", "main"]
 
@@ -200,7 +202,7 @@ def _instrument(r: Any, clock: _Clock) -> None:
         if explore and not clock.active and not clock.closed and env_steps >= clock.warmup:
             clock.active = True
             clock.steps0, clock.episodes0, clock.updates0 = env_steps, r.episodes, r.learner.updates
-            clock.load0 = os.getloadavg()
+            clock.load0 = load_average()
             clock.cpu0, clock.t0 = time.process_time(), time.perf_counter()
         return act(obs, explore=explore, env_steps=env_steps)
 
@@ -409,8 +411,8 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
                                     "all": round(loop["after_window_s"], 3)},
         "setup_s": round(loop["setup_s"], 3),
         "cpu_time_over_wall": round((clock.cpu1 - clock.cpu0) / window, 3),
-        "loadavg_at_start": [round(x, 2) for x in clock.load0],
-        "loadavg_at_end": [round(x, 2) for x in os.getloadavg()],
+        "loadavg_at_start": clock.load0,
+        "loadavg_at_end": load_average(),
         "torch_threads": loop["torch_threads"],
         "obs_shape": loop["obs_shape"],
         "obs_dtype": loop["obs_dtype"],
@@ -429,17 +431,6 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
             "replay_over_raw_max": ratio <= TARGETS["replay_over_raw_max"],
         },
     }
-
-
-def _cpu_name() -> str:
-    try:
-        with open("/proc/cpuinfo") as f:
-            for line in f:
-                if line.startswith("model name"):
-                    return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
 
 
 def _positive(kind):
@@ -535,7 +526,7 @@ def main(argv: list[str] | None = None) -> int:
         "torch": torch.__version__,
         "numpy": np.__version__,
         "platform": platform.platform(),
-        "cpu": _cpu_name(),
+        "cpu": cpu_name(),
         "cpu_count": os.cpu_count(),
         "torch_threads": _torch_threads(),
         "thread_env": {v: os.environ.get(v) for v in _THREAD_VARS},
