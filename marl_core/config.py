@@ -715,18 +715,30 @@ def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict
                 section, names = "", [*SECTIONS, *valid_keys()]
                 names = names if nearest(path, names) else list(SECTIONS)
             raise ConfigError(f"--set {item}: {_unknown(path, section, names)}")
-        node = out
-        for depth, part in enumerate(parts[:-1]):
-            child = node.get(part)
-            if child is None:
-                child = node[part] = {}
-            if not isinstance(child, dict):
-                where = ".".join(parts[:depth + 1])
-                raise ConfigError(f"--set {item}: cannot set '{path}' because {where} = {_show(child)} is "
-                                  "not a mapping")
-            node = child
-        node[parts[-1]] = value
+        try:
+            set_dotted(out, path, value)
+        except ConfigError as err:
+            raise ConfigError(f"--set {item}: {err}") from None
     return out
+
+
+def set_dotted(data: dict[str, Any], key: str, value: Any) -> None:
+    """Set ``data[a][b][c] = value`` for the dotted ``key`` ``a.b.c``, making missing mappings on the way.
+
+    Raises:
+        ConfigError: a prefix of the key holds a value that is not a mapping.
+    """
+    parts = key.split(".")
+    node = data
+    for depth, part in enumerate(parts[:-1]):
+        child = node.get(part)
+        if child is None:
+            child = node[part] = {}
+        if not isinstance(child, dict):
+            where = ".".join(parts[:depth + 1])
+            raise ConfigError(f"cannot set '{key}' because {where} = {_show(child)} is not a mapping")
+        node = child
+    node[parts[-1]] = value
 
 
 # ------------------------------------------------------------------------------------------ public API

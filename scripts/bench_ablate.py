@@ -20,7 +20,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from _machine import cpu_name, load_average
+from _common import cpu_name, load_average
 
 ROOT = Path(__file__).resolve().parents[1]
 

@@ -52,7 +52,7 @@ import sys
 import time
 from typing import Any
 
-from _machine import cpu_name, load_average
+from _common import cpu_name, load_average, non_negative_int, positive
 
 __all__ = ["GAMES", "TARGETS", "measure_batched", "measure_single", "bench_game", "main"]
 
@@ -216,22 +216,6 @@ def _targets_met(results: dict[str, dict[str, Any]]) -> dict[str, dict[str, bool
             for game, want in TARGETS.items() if game in results}
 
 
-def _positive(kind):
-    def parse(text: str):
-        value = kind(text)
-        if value <= 0:
-            raise argparse.ArgumentTypeError(f"expected a positive {kind.__name__}, got {text!r}")
-        return value
-    return parse
-
-
-def _non_negative_int(text: str) -> int:
-    value = int(text)
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected a non-negative integer, got {text!r}")
-    return value
-
-
 def _table(report: dict[str, Any]) -> str:
     load = report["load_average"]["before"]
     lines = [f"python {report['python']}  numpy {report['numpy']}  {report['platform']}",
@@ -256,13 +240,13 @@ def _table(report: dict[str, Any]) -> str:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--num-envs", type=_positive(int), default=64, help="copies in the batched env")
-    parser.add_argument("--agents", type=_positive(int), default=5, help="agents per copy")
-    parser.add_argument("--view-radius", type=_positive(int), default=7, help="observation window radius")
-    parser.add_argument("--seconds", type=_positive(float), default=3.0,
+    parser.add_argument("--num-envs", type=positive(int), default=64, help="copies in the batched env")
+    parser.add_argument("--agents", type=positive(int), default=5, help="agents per copy")
+    parser.add_argument("--view-radius", type=positive(int), default=7, help="observation window radius")
+    parser.add_argument("--seconds", type=positive(float), default=3.0,
                         help="time budget of each measurement (warm-up included), default 3")
-    parser.add_argument("--repeats", type=_positive(int), default=3, help="timed repeats; the best counts")
-    parser.add_argument("--seed", type=_non_negative_int, default=0,
+    parser.add_argument("--repeats", type=positive(int), default=3, help="timed repeats; the best counts")
+    parser.add_argument("--seed", type=non_negative_int, default=0,
                         help="seed of the envs and of the random actions")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     args = parser.parse_args(argv)

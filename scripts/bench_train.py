@@ -81,7 +81,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from _machine import cpu_name, load_average
+from _common import cpu_name, load_average, non_negative_int, positive
 
 __all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measure_loop", "measure_bare",
            "bench_learner", "main"]
@@ -433,22 +433,6 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
     }
 
 
-def _positive(kind):
-    def parse(text: str):
-        value = kind(text)
-        if value <= 0:
-            raise argparse.ArgumentTypeError(f"expected a positive {kind.__name__}, got {text!r}")
-        return value
-    return parse
-
-
-def _non_negative(text: str) -> int:
-    value = int(text)
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"expected an integer >= 0, got {text!r}")
-    return value
-
-
 def _learner_list(text: str) -> list[str]:
     names = [t.strip() for t in text.split(",") if t.strip()]
     bad = [n for n in names if n not in LEARNERS]
@@ -485,21 +469,21 @@ def _table(report: dict[str, Any]) -> str:
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0],
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
-    parser.add_argument("--steps", type=_positive(int), default=None,
+    parser.add_argument("--steps", type=positive(int), default=None,
                         help="measured env steps per learner (default: sized from the bare update rate "
                              "for about --seconds)")
-    parser.add_argument("--seconds", type=_positive(float), default=DEFAULT_SECONDS,
+    parser.add_argument("--seconds", type=positive(float), default=DEFAULT_SECONDS,
                         help=f"target window length when --steps is not given (default "
                              f"{DEFAULT_SECONDS:g})")
-    parser.add_argument("--warmup-updates", type=_non_negative, default=DEFAULT_WARMUP_UPDATES,
+    parser.add_argument("--warmup-updates", type=non_negative_int, default=DEFAULT_WARMUP_UPDATES,
                         help=f"update rounds after learning starts and before the window (default "
                              f"{DEFAULT_WARMUP_UPDATES})")
-    parser.add_argument("--num-envs", type=_positive(int), default=8, help="env copies (default 8)")
-    parser.add_argument("--agents", type=_positive(int), default=5, help="agents per copy (default 5)")
-    parser.add_argument("--view-radius", type=_positive(int), default=7, help="view radius (default 7)")
-    parser.add_argument("--max-cycles", type=_positive(int), default=None,
+    parser.add_argument("--num-envs", type=positive(int), default=8, help="env copies (default 8)")
+    parser.add_argument("--agents", type=positive(int), default=5, help="agents per copy (default 5)")
+    parser.add_argument("--view-radius", type=positive(int), default=7, help="view radius (default 7)")
+    parser.add_argument("--max-cycles", type=positive(int), default=None,
                         help="episode length (default: the game's)")
-    parser.add_argument("--bare-seconds", type=_positive(float), default=10.0,
+    parser.add_argument("--bare-seconds", type=positive(float), default=10.0,
                         help="time budget of the bare update loop per learner (default 10)")
     parser.add_argument("--learners", type=_learner_list, default=list(LEARNERS),
                         help="comma-separated learners (default idqn,maddpg)")

@@ -73,6 +73,7 @@ from marl_core.config import (
     config_hash,
     parse_config,
     schema_table,
+    set_dotted,
     valid_keys,
 )
 from marl_core.errors import ConfigError
@@ -270,20 +271,6 @@ def _overrides(value: Any, where: str, base: dict[str, Any]) -> dict[str, Any]:
     return {_check_key(k, where, base): copy.deepcopy(v) for k, v in value.items()}
 
 
-def _set_path(data: dict[str, Any], key: str, value: Any) -> None:
-    parts = key.split(".")
-    node = data
-    for depth, part in enumerate(parts[:-1]):
-        child = node.get(part)
-        if child is None:
-            child = node[part] = {}
-        if not isinstance(child, dict):
-            prefix = ".".join(parts[:depth + 1])
-            raise ConfigError(f"cannot set {key} because {prefix} = {_show(child)} is not a mapping")
-        node = child
-    node[parts[-1]] = copy.deepcopy(value)
-
-
 def _kind_of(base: dict[str, Any]) -> Any:
     learner = base.get("learner")
     return learner.get("kind", "idqn") if isinstance(learner, dict) else "idqn"
@@ -302,7 +289,7 @@ def _build(base: dict[str, Any], steps: list[dict[str, Any]]) -> dict[str, Any]:
         data["learner"] = {k: v for k, v in learner.items() if k in allowed}
     for overrides in steps:
         for key, value in overrides.items():
-            _set_path(data, key, value)
+            set_dotted(data, key, copy.deepcopy(value))
     return data
 
 

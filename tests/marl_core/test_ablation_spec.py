@@ -357,5 +357,5 @@ def test_run_spec_fields():
 def test_a_key_through_a_value_that_is_not_a_mapping_names_the_arm():
     with pytest.raises(ConfigError) as info:
         parse_spec(_spec(set={"env.params": 3}, arms={"a": {"env.params.layout": "harvest_tiny"}}))
-    assert str(info.value) == ("arm 'a': cannot set env.params.layout because env.params = 3 is not a mapping "
+    assert str(info.value) == ("arm 'a': cannot set 'env.params.layout' because env.params = 3 is not a mapping "
                                "(from arms.a)")
