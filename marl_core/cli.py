@@ -180,7 +180,8 @@ def _train(args: argparse.Namespace) -> int:
         if args.config or args.out or args.set:
             raise UsageError("train --resume RUN_DIR takes no CONFIG, --out or --set (the run keeps its config)")
         out = args.resume
-        with _Progress(args.quiet) as bar:
+        quiet = args.quiet or not train.load_run(out).log.progress  # log.progress: false = quiet
+        with _Progress(quiet) as bar:
             summary = train.resume(out, progress=bar)
     else:
         if not args.config or not args.out:
@@ -189,7 +190,7 @@ def _train(args: argparse.Namespace) -> int:
 
         cfg = load_config(args.config, args.set)
         out = args.out
-        with _Progress(args.quiet) as bar:
+        with _Progress(args.quiet or not cfg.log.progress) as bar:
             summary = train.run(cfg, out, progress=bar)
     print(f"run: {out}  ({summary['env_steps']} env steps, {summary['episodes']} episodes)")
     print(_table(summary))

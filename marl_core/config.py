@@ -265,6 +265,14 @@ def _batch_size(default: Any) -> Any:
     return Field(default, ge=1, description="transitions sampled from replay per update")
 
 
+def _end_not_above_start(cfg: BaseModel, schedule: str) -> None:
+    """A decaying schedule ends at or below where it starts (``<schedule>_end <= <schedule>_start``)."""
+    start, end = getattr(cfg, f"{schedule}_start"), getattr(cfg, f"{schedule}_end")
+    if end > start:
+        raise _own_error(_not_allowed(f"learner.{schedule}_end", end,
+                                      f"a number <= learner.{schedule}_start ({start!r})"))
+
+
 class _LearnerBase(BaseModel):
     """Keys every learner has. The three without a default here get one per kind."""
 
@@ -325,9 +333,7 @@ class IDQNConfig(_LearnerBase):
 
     @model_validator(mode="after")
     def _check_schedule(self) -> IDQNConfig:
-        if self.eps_end > self.eps_start:
-            raise _own_error(_not_allowed("learner.eps_end", self.eps_end,
-                                          f"a number <= learner.eps_start ({self.eps_start!r})"))
+        _end_not_above_start(self, "eps")
         return self
 
 
@@ -360,10 +366,7 @@ class MADDPGConfig(_LearnerBase):
 
     @model_validator(mode="after")
     def _check_schedule(self) -> MADDPGConfig:
-        if self.explore_eps_end > self.explore_eps_start:
-            raise _own_error(_not_allowed("learner.explore_eps_end", self.explore_eps_end,
-                                          f"a number <= learner.explore_eps_start "
-                                          f"({self.explore_eps_start!r})"))
+        _end_not_above_start(self, "explore_eps")
         return self
 
 
@@ -754,6 +757,29 @@ def parse_config(data: dict[str, Any], overrides: Sequence[str] = ()) -> RunConf
     return _validate(apply_overrides(data, overrides))
 
 
+def read_yaml_mapping(path: str | os.PathLike, what: str,
+                      expect: str = "a mapping") -> tuple[dict[str, Any] | None, Path]:
+    """Read the YAML file ``path`` (called ``what`` in messages) with the project's loader.
+
+    Returns the parsed data (``None`` for an empty file) and the path. Raises :class:`ConfigError` in one
+    line for a missing or unreadable file, invalid YAML (with its line and column), or a top level that is
+    not a mapping (``expect`` says what it should be).
+    """
+    path = Path(path)
+    if not path.is_file():
+        problem = "is a directory, not a file" if path.is_dir() else "not found"
+        raise ConfigError(f"{what} '{path}' {problem}")
+    try:
+        data = _read_yaml(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as err:
+        raise ConfigError(f"cannot read {what} '{path}': {' '.join(str(err).split())}") from None
+    except yaml.YAMLError as err:
+        raise ConfigError(f"invalid YAML in {what} '{path}'{_yaml_problem(err)}") from None
+    if data is not None and not isinstance(data, dict):
+        raise ConfigError(f"{what} '{path}': the top level must be {expect}; got {_show(data)}")
+    return data, path
+
+
 def load_config(path: str | os.PathLike, overrides: Sequence[str] = ()) -> RunConfig:
     """Read a YAML run config, apply ``overrides`` (``"key.path=value"``) and validate it.
 
@@ -761,24 +787,8 @@ def load_config(path: str | os.PathLike, overrides: Sequence[str] = ()) -> RunCo
         ConfigError: a missing or unreadable file, invalid YAML (with its line and column), a top level
             that is not a mapping, a bad override, or an invalid key or value.
     """
-    path = Path(path)
-    if not path.is_file():
-        what = "is a directory, not a file" if path.is_dir() else "not found"
-        raise ConfigError(f"config file '{path}' {what}")
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"cannot read config file '{path}': {' '.join(str(err).split())}") from None
-    try:
-        data = _read_yaml(text)
-    except yaml.YAMLError as err:
-        raise ConfigError(f"invalid YAML in '{path}'{_yaml_problem(err)}") from None
-    if data is None:
-        data = {}
-    if not isinstance(data, dict):
-        raise ConfigError(f"{path}: the top level must be a mapping of sections ({', '.join(SECTIONS)}); "
-                          f"got {_show(data)}")
-    return parse_config(data, overrides)
+    data, _ = read_yaml_mapping(path, "config file", f"a mapping of sections ({', '.join(SECTIONS)})")
+    return parse_config(data or {}, overrides)
 
 
 def config_to_dict(cfg: RunConfig) -> dict[str, Any]:

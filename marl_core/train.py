@@ -59,8 +59,8 @@ def _result(ev: dict[str, Any]) -> dict[str, Any]:
 class _Run:
     """State of one training run (built fresh or from a checkpoint)."""
 
-    def __init__(self, cfg: RunConfig, out: Path, quiet: bool, progress: Callable | None):
-        self.cfg, self.out, self.quiet = cfg, out, quiet
+    def __init__(self, cfg: RunConfig, out: Path, progress: Callable | None):
+        self.cfg, self.out = cfg, out
         torch.set_num_threads(cfg.learner.torch_threads)
         seed = cfg.train.seed
         e = cfg.env
@@ -241,12 +241,12 @@ def _fresh_dir(out: Path) -> None:
                           f"continue it with: marl-core train --resume {out}")
 
 
-def run(cfg: RunConfig, out: str | Path, quiet: bool = True,
+def run(cfg: RunConfig, out: str | Path,
         progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
     """Train from scratch into the new run directory ``out``; return the summary."""
     out = Path(out)
     _fresh_dir(out)
-    r = _Run(cfg, out, quiet, progress)  # builds envs and learner first: a bad env fails before any file
+    r = _Run(cfg, out, progress)  # builds envs and learner first: a bad env fails before any file
     out.mkdir(parents=True, exist_ok=True)
     (out / "checkpoints").mkdir(exist_ok=True)
     dump_config(cfg, out / "config.yaml")
@@ -263,14 +263,14 @@ def load_run(out: str | Path) -> RunConfig:
     return load_config(out / "config.yaml")
 
 
-def resume(out: str | Path, quiet: bool = True,
+def resume(out: str | Path,
            progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
     """Continue the run in ``out`` from its last checkpoint; return the summary."""
     out = Path(out)
     cfg = load_run(out)
     if not (out / "checkpoints" / "last.pt").is_file():
         raise RunDirError(f"run directory '{out}' has no checkpoint to resume from (checkpoints/last.pt)")
-    r = _Run(cfg, out, quiet, progress)
+    r = _Run(cfg, out, progress)
     r.load_checkpoint()
     if r.env_steps >= cfg.train.total_steps and (out / "summary.json").is_file():
         return json.loads((out / "summary.json").read_text())
@@ -289,7 +289,7 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
     if episodes is not None and episodes < 1:
         raise RunDirError(f"--episodes = {episodes} is not allowed; expected an integer >= 1")
     n = episodes or cfg.train.eval_episodes
-    r = _Run(cfg, out, True, None)
+    r = _Run(cfg, out, None)
     r.load_checkpoint()
     env = make_team_env(cfg.env.name, cfg.env.params, min(n, cfg.env.num_envs), cfg.train.seed + EVAL_SEED_OFFSET,
                         render=gif is not None)

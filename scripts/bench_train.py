@@ -239,7 +239,7 @@ def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
     try:
         out = tmp / "run"
         t_build = time.perf_counter()
-        r = _Run(cfg, out, True, None)  # the same steps as marl_core.train.run, which gives no handle on r
+        r = _Run(cfg, out, None)  # the same steps as marl_core.train.run, which gives no handle on r
         out.mkdir(parents=True)
         (out / "checkpoints").mkdir()
         dump_config(cfg, out / "config.yaml")

@@ -64,14 +64,12 @@ from functools import lru_cache
 from pathlib import Path
 from typing import Any
 
-import yaml
-
 import envs
 from marl_core.config import (
     RunConfig,
-    _read_yaml,  # the project's YAML loader (1e-3 as a number, duplicate keys rejected)
     config_hash,
     parse_config,
+    read_yaml_mapping,
     schema_table,
     set_dotted,
     valid_keys,
@@ -170,14 +168,6 @@ class Sweep:
 def _show(value: Any) -> str:
     text = repr(value).replace("\n", " ")
     return text if len(text) <= 80 else text[:77] + "..."
-
-
-def _yaml_problem(err: yaml.YAMLError) -> str:
-    """`` at line L, column C: problem`` of a YAML error, on one line."""
-    mark = getattr(err, "problem_mark", None)
-    problem = " ".join(str(getattr(err, "problem", None) or err).split())
-    where = f" at line {mark.line + 1}, column {mark.column + 1}" if mark is not None else ""
-    return f"{where}: {problem}"
 
 
 def _did_you_mean(close: list[str]) -> str:
@@ -310,21 +300,8 @@ def _read_base(value: Any, base_dir: Path) -> tuple[dict[str, Any], str | None]:
     path = Path(value)
     if not path.is_absolute():
         path = base_dir / path
-    if not path.is_file():
-        what = "is a directory, not a file" if path.is_dir() else "not found"
-        raise ConfigError(f"base config '{path}' {what}")
-    try:
-        data = _read_yaml(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"cannot read base config '{path}': {' '.join(str(err).split())}") from None
-    except yaml.YAMLError as err:
-        raise ConfigError(f"invalid YAML in base config '{path}'{_yaml_problem(err)}") from None
-    if data is None:
-        data = {}
-    if not isinstance(data, dict):
-        raise ConfigError(f"base config '{path}': the top level must be a mapping of sections; got "
-                          f"{_show(data)}")
-    return data, str(path)
+    data, path = read_yaml_mapping(path, "base config", "a mapping of sections")
+    return data or {}, str(path)
 
 
 def _read_seeds(value: Any) -> list[int]:
@@ -511,16 +488,7 @@ def load_spec(path: str | os.PathLike) -> Sweep:
         ConfigError: a missing or unreadable file, invalid YAML, or any problem of :func:`parse_spec`
             (the message starts with the spec's path).
     """
-    path = Path(path)
-    if not path.is_file():
-        what = "is a directory, not a file" if path.is_dir() else "not found"
-        raise ConfigError(f"sweep spec '{path}' {what}")
-    try:
-        data = _read_yaml(path.read_text(encoding="utf-8"))
-    except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"cannot read sweep spec '{path}': {' '.join(str(err).split())}") from None
-    except yaml.YAMLError as err:
-        raise ConfigError(f"invalid YAML in sweep spec '{path}'{_yaml_problem(err)}") from None
+    data, path = read_yaml_mapping(path, "sweep spec", "a mapping of spec keys")
     try:
         return parse_spec(data, path.parent)
     except ConfigError as err:

@@ -239,7 +239,7 @@ def test_directory_is_not_a_config_file(tmp_path):
 
 def test_invalid_yaml_gives_the_line(tmp_path):
     path = _write(tmp_path, "learner:\n  lr: 0.1\n gamma: 0.9\n")
-    with pytest.raises(ConfigError, match=r"^invalid YAML in '.*run\.yaml' at line 3, column 2: ") as info:
+    with pytest.raises(ConfigError, match=r"^invalid YAML in config file '.*run\.yaml' at line 3, column 2: ") as info:
         load_config(path)
     assert "\n" not in str(info.value)
 
