@@ -3,7 +3,8 @@
 ``check_game(name)`` runs PettingZoo's own checkers (``parallel_api_test``, ``api_test`` on the AEC form,
 ``render_test``) and ours, which go further where PettingZoo's stop short: every observation's dtype, shape
 and bounds against its space on a long random rollout; a multi-step determinism check (PettingZoo's
-``parallel_seed_test`` compares the first step only); truncation exactly at ``max_cycles``; and agreement
+``parallel_seed_test`` compares the first step only); the episode end exactly at ``max_cycles``, reported as
+the game's ``horizon`` says (terminated for ``"terminal"``, truncated for ``"time_limit"``); and agreement
 between copy b of the batched engine and a single env reset with seed + b.
 """
 
@@ -14,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["check_game", "check_spaces", "check_determinism", "check_truncation", "check_batched_matches_single",
-           "rollout"]
+__all__ = ["check_game", "check_spaces", "check_determinism", "check_episode_end", "check_truncation",
+           "check_batched_matches_single", "rollout"]
 
 
 def rollout(env: Any, seed: int, steps: int, action_seed: int = 0) -> list[tuple]:
@@ -63,15 +64,25 @@ def check_determinism(make: Callable[[], Any], steps: int = 200, seed: int = 7) 
         assert _same(x, y), f"step {t} differs between two runs with seed {seed}"
 
 
-def check_truncation(make: Callable[..., Any], max_cycles: int = 17) -> None:
-    """Every agent is truncated (never terminated) exactly at step ``max_cycles``."""
+def check_episode_end(make: Callable[..., Any], max_cycles: int = 17) -> None:
+    """Every agent ends exactly at step ``max_cycles``, all at once, by the flag the env's ``horizon`` names:
+    terminated (never truncated) for ``"terminal"``, truncated (never terminated) for ``"time_limit"``."""
     env = make(max_cycles=max_cycles)
+    horizon = env.params["horizon"]
+    ends, never = ("terminated", "truncated") if horizon == "terminal" else ("truncated", "terminated")
     steps = rollout(env, 0, max_cycles + 5)
     assert len(steps) == max_cycles + 1, f"episode lasted {len(steps) - 1} steps, expected {max_cycles}"
     for t, (_, _, term, trunc, _) in enumerate(steps[1:], start=1):
-        assert not any(term.values()), f"termination at step {t}"
-        assert all(trunc.values()) == (t == max_cycles), f"truncation flags wrong at step {t}"
+        flags = {"terminated": term, "truncated": trunc}
+        assert not any(flags[never].values()), f"{never} at step {t} with horizon {horizon!r}"
+        assert set(flags[ends]) == set(env.possible_agents), f"{ends} flags missing agents at step {t}"
+        assert all(v == (t == max_cycles) for v in flags[ends].values()), f"{ends} flags wrong at step {t}"
     assert env.agents == []
+
+
+def check_truncation(make: Callable[..., Any], max_cycles: int = 17) -> None:
+    """Every agent is truncated (never terminated) exactly at step ``max_cycles`` (``horizon="time_limit"``)."""
+    check_episode_end(lambda **kw: make(**{**kw, "horizon": "time_limit"}), max_cycles)
 
 
 def check_batched_matches_single(module: Any, params: dict[str, Any], num_envs: int = 3, steps: int = 200,
@@ -99,7 +110,7 @@ def check_batched_matches_single(module: Any, params: dict[str, Any], num_envs: 
                 assert te[a] == term_v[b, n] and tr[a] == trunc_v[b, n], f"end flags differ at {where}"
                 assert all(inf[a][k] == info_v[k][b, n] for k in info_v), f"infos differ at {where}"
             assert np.array_equal(s.state(), vec.state()[b]), f"state differs at step {t + 1}, copy {b}"
-        if trunc_v.all():
+        if (term_v | trunc_v).all():
             break
 
 
@@ -123,5 +134,5 @@ def check_game(name: str, params: dict[str, Any] | None = None, cycles: int = 30
         render_mode=None if render_mode == "human" else render_mode, **params))
     check_spaces(make, steps=cycles)
     check_determinism(make, steps=cycles)
-    check_truncation(make)
+    check_episode_end(make)
     check_batched_matches_single(module, params, steps=cycles)

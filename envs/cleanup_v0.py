@@ -40,7 +40,12 @@ diligent cleaner can hold it well below.
 **Starting state.** Resources on the ``+`` cells, waste on the ``w`` cells of the layout; agents at distinct
 random spawn points, facing a random way.
 
-**Episode end.** Truncation after ``max_cycles`` steps, for every agent at once. There is no termination.
+**Episode end.** After ``max_cycles`` steps, for every agent at once, as ``horizon`` says: with
+``"time_limit"`` (the default) every agent is truncated, the episode being cut by a time limit (learners
+bootstrap past it); with ``"terminal"`` every agent is terminated, the last step being part of the game (no
+bootstrap past it). Nothing ends the episode earlier. Agents do not observe the step count, so with
+``"terminal"`` the problem is not Markov in the observation: the same window is seen with many steps left
+and with none, and its value differs.
 
 **Infos** (per agent, per step): ``resources_taken``, ``tags_fired``, ``times_tagged``, ``frozen``,
 ``waste_removed`` (waste cells its clean beam covered).
@@ -58,7 +63,8 @@ depletion_threshold    float  0.4      polluted river fraction at and above whic
 restoration_threshold  float  0.0      polluted fraction at and below which growth is at full rate
 =====================  =====  =======  ==========================================================
 
-**Version history.** v0: first release.
+**Version history.** v0: first release. Later in v0: the ``horizon`` parameter (default ``"time_limit"``,
+the behaviour of the first release: truncation at ``max_cycles``).
 """
 
 from __future__ import annotations

@@ -11,8 +11,11 @@ Batched contract (every game):
 * ``step(actions) -> (obs, rewards, terminated, truncated, infos)`` with ``actions: (B, N)`` integers,
   ``obs: (B, N, *obs_shape)``, ``rewards: (B, N) float32``, ``terminated``/``truncated: (B, N) bool`` and
   ``infos`` a dict of ``(B, N)`` integer arrays (per-agent event counts of that step).
-* Copies run in lockstep: every game ends by truncation after ``max_cycles`` steps, so all copies end
-  together and the caller resets the batch.
+* Copies run in lockstep: every game ends after ``max_cycles`` steps, so all copies end together and the
+  caller resets the batch. The game parameter ``horizon`` (:data:`HORIZONS`) says how that end is reported:
+  ``"terminal"``: every agent is *terminated* (the last step is part of the game; a learner must not bootstrap
+  past it); ``"time_limit"``: every agent is *truncated* (the episode is cut by a time limit; a learner
+  bootstraps from the final observation). No game ends before ``max_cycles``; before it both flags are False.
 * ``state() -> (B, *state_shape)``: the whole world, for centralised critics.
 """
 
@@ -25,8 +28,29 @@ from gymnasium import spaces
 from pettingzoo.utils.env import ParallelEnv
 
 from envs.errors import ActionError, ParamError
+from envs.params import Param
 
-__all__ = ["BatchedGame", "GameParallelEnv", "check_joint_actions"]
+__all__ = ["BatchedGame", "GameParallelEnv", "check_joint_actions", "HORIZONS", "TERMINAL", "TIME_LIMIT",
+           "horizon_param", "end_flags"]
+
+TERMINAL = "terminal"
+TIME_LIMIT = "time_limit"
+HORIZONS: tuple[str, ...] = (TERMINAL, TIME_LIMIT)
+
+
+def horizon_param(default: str) -> Param:
+    """The ``horizon`` parameter every game declares, with the game's own default."""
+    return Param("horizon", str, default, "how the end at max_cycles is reported: 'terminal' (every agent "
+                 "terminated, no bootstrap past it) or 'time_limit' (every agent truncated, learners bootstrap)",
+                 choices=HORIZONS)
+
+
+def end_flags(horizon: str, ended: bool, shape: tuple[int, int]) -> tuple[np.ndarray, np.ndarray]:
+    """``(terminated, truncated)``, both ``shape`` bool: all False while the episode goes on; when it ``ended``,
+    all True in the flag the ``horizon`` names (``"terminal"``: terminated, ``"time_limit"``: truncated)."""
+    done = np.full(shape, bool(ended))
+    never = np.zeros(shape, bool)
+    return (done, never) if horizon == TERMINAL else (never, done)
 
 
 class BatchedGame:

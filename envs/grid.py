@@ -37,7 +37,11 @@ Step order, for every copy at once:
 5. Frozen agents whose time is up return at distinct random free spawn points (if too few are free,
    the ones left over wait a step).
 6. The game grows resources / waste (see each game).
-7. After ``max_cycles`` steps every agent is truncated (there is no termination).
+7. After ``max_cycles`` steps the episode ends for every agent at once: truncated with ``horizon =
+   "time_limit"`` (the default: the episode is cut by a time limit, learners bootstrap past it), terminated
+   with ``horizon = "terminal"`` (the last step is part of the game). Nothing ends earlier. Agents do not
+   observe the step count, so with ``"terminal"`` the problem is not Markov in the observation: the same
+   window can be seen with many steps left or with none, and its value differs.
 
 Randomness during a step comes from a counter-based generator: a 64-bit key drawn at reset from the copy's
 own seeded ``numpy`` generator, hashed with the step number and the cell or agent index (the SplitMix64
@@ -53,7 +57,7 @@ import numpy as np
 from gymnasium import spaces
 from numpy.lib.stride_tricks import sliding_window_view
 
-from envs.core import BatchedGame
+from envs.core import TIME_LIMIT, BatchedGame, end_flags, horizon_param
 from envs.errors import ParamError
 from envs.layouts import Layout, layout_problem, load_layout
 from envs.params import Param, resolve
@@ -108,7 +112,9 @@ def grid_params(layout: str, extra: list[Param]) -> list[Param]:
     return [
         Param("layout", str, layout, "bundled layout name or path of a layout file", check=layout_problem),
         Param("num_agents", int, 5, "number of agents (1 up to the layout's spawn points)", low=1, high=10),
-        Param("max_cycles", int, 1000, "steps per episode; then every agent is truncated", low=1),
+        Param("max_cycles", int, 1000, "steps per episode; then the episode ends for every agent (horizon)",
+              low=1),
+        horizon_param(TIME_LIMIT),
         Param("view_radius", int, 7, "observation window is (2r+1) x (2r+1) around the agent", low=1),
         Param("full_view", bool, False, "observe the whole map (H x W, not egocentric) instead of a window"),
         Param("tagging", bool, True, "agents have a tag action"),
@@ -354,12 +360,12 @@ class GridGame(BatchedGame):
 
         # 7. time
         self.t += 1
-        trunc = np.full((B, N), self.t >= self.max_cycles)
+        term, trunc = end_flags(self.params["horizon"], self.t >= self.max_cycles, (B, N))
         infos = {"resources_taken": took.astype(np.int64), "tags_fired": tags_fired,
                  "times_tagged": times_tagged, "frozen": was_out.astype(np.int64)}
         if waste_removed is not None:
             infos["waste_removed"] = waste_removed
-        return self._observe(), rewards, np.zeros((B, N), bool), trunc, infos
+        return self._observe(), rewards, term, trunc, infos
 
     def _beam(self, fire: np.ndarray, offsets: np.ndarray):
         """Cells ``(K, L, w)`` and wall-stopped reach of the beams fired by the ``K`` agents in ``fire``."""

@@ -32,7 +32,12 @@ distance ``regrow_radius`` (the cell itself excluded). The defaults follow Perol
 **Starting state.** Resources on every ``+`` cell of the layout; agents at distinct random spawn points,
 facing a random way.
 
-**Episode end.** Truncation after ``max_cycles`` steps, for every agent at once. There is no termination.
+**Episode end.** After ``max_cycles`` steps, for every agent at once, as ``horizon`` says: with
+``"time_limit"`` (the default) every agent is truncated, the episode being cut by a time limit (learners
+bootstrap past it); with ``"terminal"`` every agent is terminated, the last step being part of the game (no
+bootstrap past it). Nothing ends the episode earlier. Agents do not observe the step count, so with
+``"terminal"`` the problem is not Markov in the observation: the same window is seen with many steps left
+and with none, and its value differs.
 
 **Infos** (per agent, per step): ``resources_taken``, ``tags_fired``, ``times_tagged`` (beams that hit it),
 ``frozen`` (1 if it sat out this step).
@@ -45,6 +50,8 @@ name               type   default              meaning
 layout             str    ``harvest_small``    bundled layout name or path of a layout file
 num_agents         int    5                    1 up to the layout's spawn points (at most 10)
 max_cycles         int    1000                 steps per episode
+horizon            str    ``"time_limit"``     end at max_cycles: ``"time_limit"`` (truncated) or
+                                               ``"terminal"`` (terminated)
 view_radius        int    7                    window radius r, 1 .. max(H, W)
 full_view          bool   False                observe the whole map instead of a window
 tagging            bool   True                 agents have a tag action
@@ -57,7 +64,8 @@ regrow_radius      int    2                    radius of the neighbourhood count
 regrow_table       list   0,.01,.01,.05,.05,.1 regrowth probability by neighbour count (last: and more)
 =================  =====  ===================  =====================================================
 
-**Version history.** v0: first release.
+**Version history.** v0: first release. Later in v0: the ``horizon`` parameter (default ``"time_limit"``,
+the behaviour of the first release: truncation at ``max_cycles``).
 """
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ Agent ids           ``agent_0`` .. ``agent_{N-1}``
 Actions             ``Discrete(A)``; A = 2 for every bundled table
 Observation         ``Box(0, 1, (N * A,), uint8)``: the previous joint action, one-hot
 State               ``Box(0, 1, (N * A,), uint8)``: the same vector
-Episode             ``max_cycles`` rounds (1 = one-shot), then truncation
+Episode             ``max_cycles`` rounds (1 = one-shot), then termination (``horizon``)
 ==================  =====================================================================
 
 Description
@@ -66,24 +66,41 @@ Starting state
     seeding contract of ``reset(seed)`` is kept all the same.
 
 Episode end
-    * termination: never.
-    * truncation: after ``max_cycles`` rounds, for every agent at once.
+    After ``max_cycles`` rounds, for every agent at once, as ``horizon`` says:
+
+    * ``"terminal"`` (default): every agent is terminated. The rounds are the game, and the last round is
+      its last move: nothing is earned after it, so a learner must not bootstrap past it. With
+      ``max_cycles = 1`` this is the one-shot game, whose values are the table's payoffs.
+    * ``"time_limit"``: every agent is truncated. The episode is a window cut out of an endless repeated
+      game by a time limit, and learners bootstrap from the final observation.
+
+    Nothing ends the episode earlier. Agents do not observe the round number: the observation is the
+    previous joint action only, all zeros in the first round. So it tells the first round from the others
+    and nothing more. With ``"terminal"`` and ``max_cycles`` of 3 or more, rounds 2 .. ``max_cycles`` look
+    alike although the number of rounds left (and so the value of an action) differs: the problem is not
+    Markov in the observation. Only with ``max_cycles`` 1 or 2 does the observation reveal the round.
+    (With ``"time_limit"`` the learner treats every round as one of an endless game, so the round number
+    does not matter to its values.)
 
 Arguments
     ==============  ======  =======================  ==================================================
     name            type    default                  meaning
     ==============  ======  =======================  ==================================================
-    ``game``        str     ``"prisoners_dilemma"``  bundled table, or ``"custom"`` (set when
-                                                     ``payoffs`` is given)
+    ``game``        str     ``"prisoners_dilemma"``  bundled table, or ``"custom"`` (the game when
+                                                     ``payoffs`` is given and ``game`` is not)
     ``payoffs``     list    ``None``                 custom table, flat, ``N * A**N`` numbers (layout
                                                      above)
     ``num_agents``  int     2                        team size N; 2 for the two-player tables
     ``max_cycles``  int     10                       rounds per episode; 1 = one-shot game
+    ``horizon``     str     ``"terminal"``           end at max_cycles: ``"terminal"`` (terminated) or
+                                                     ``"time_limit"`` (truncated)
     ``multiplier``  float   1.6                      public goods only: factor on the common pot
     ==============  ======  =======================  ==================================================
 
 Version history
     * v0: first version.
+    * v0, later: the ``horizon`` parameter. The last round of matrix_v0 is now terminal by default (every
+      agent terminated); the first version truncated it, which is ``horizon = "time_limit"``.
 """
 
 from __future__ import annotations
@@ -93,12 +110,12 @@ from typing import Any, ClassVar
 import numpy as np
 from gymnasium import spaces
 
-from envs.core import BatchedGame, GameParallelEnv
+from envs.core import TERMINAL, BatchedGame, GameParallelEnv, end_flags, horizon_param
 from envs.errors import ActionError, ParamError
 from envs.params import Param, resolve
 
 __all__ = ["NAME", "PARAMS", "TABLES", "MatrixGame", "MatrixParallelEnv", "parallel_env", "env",
-           "vector_env", "build_table"]
+           "vector_env", "build_table", "resolve_params"]
 
 NAME = "matrix_v0"
 
@@ -134,9 +151,32 @@ PARAMS: list[Param] = [
           "order (agent_0 slowest), each followed by the N agents' payoffs"),
     Param("num_agents", int, 2, "team size N (2 for the two-player tables)", low=2, high=MAX_AGENTS),
     Param("max_cycles", int, 10, "rounds per episode; 1 = one-shot game", low=1, high=1_000_000),
+    horizon_param(TERMINAL),
     Param("multiplier", float, 1.6, "public_goods only: factor on the common pot (a dilemma when "
           "1 < multiplier < num_agents)", low=0.0),
 ]
+_GAME = PARAMS[0]
+
+
+def resolve_params(given: dict[str, Any]) -> dict[str, Any]:
+    """Every parameter's value (defaults filled in), with the one rule between two of them: when ``payoffs``
+    is given (not None) and ``game`` is not, the game is ``"custom"``.
+
+    Raises:
+        ParamError: for an unknown name or a bad value, and for a bundled ``game`` given together with
+            ``payoffs``.
+    """
+    given = dict(given)
+    if given.get("payoffs", 0) is None:
+        del given["payoffs"]            # None means "use `game`", the default
+    if "payoffs" in given:
+        game = given.get("game", CUSTOM)
+        if game != CUSTOM:
+            _GAME.validate(game, NAME)  # a name that is no game at all gets the usual message first
+            raise ParamError(f"{NAME}: parameter 'game' = {game!r} is not allowed together with 'payoffs'; "
+                             f"expected 'custom' or leave 'game' out")
+        given["game"] = CUSTOM
+    return resolve(NAME, PARAMS, given)
 
 
 def build_table(params: dict[str, Any]) -> tuple[tuple[str, ...], np.ndarray]:
@@ -215,15 +255,7 @@ class MatrixGame(BatchedGame):
 
     def __init__(self, num_envs: int = 1, **params: Any):
         self.num_envs = self.check_num_envs(NAME, num_envs)
-        given = dict(params)
-        if given.get("payoffs", 0) is None:
-            del given["payoffs"]            # None means "use `game`", the default
-        if "payoffs" in given:
-            if given.get("game", CUSTOM) != CUSTOM:
-                raise ParamError(f"{NAME}: parameter 'game' = {given['game']!r} is not allowed together with "
-                                 f"'payoffs'; expected 'custom' or leave 'game' out")
-            given["game"] = CUSTOM
-        self.params = resolve(NAME, PARAMS, given)
+        self.params = resolve_params(params)
         self.action_names, self.payoff_table = build_table(self.params)
         n = self.params["num_agents"]
         a = len(self.action_names)
@@ -264,8 +296,8 @@ class MatrixGame(BatchedGame):
         self._last = a.copy()
         self._rewards = rewards.copy()
         self._round += 1
-        terminated = np.zeros((self.num_envs, n), bool)
-        truncated = np.full((self.num_envs, n), self._round >= self.max_cycles)
+        terminated, truncated = end_flags(self.params["horizon"], self._round >= self.max_cycles,
+                                          (self.num_envs, n))
         infos = {"action": a.copy(), "frozen": np.zeros_like(a)}
         return self._observe(), rewards, terminated, truncated, infos
 

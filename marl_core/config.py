@@ -228,8 +228,10 @@ class EnvConfig(BaseModel):
 
 
 def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
-    """Check ``given`` against the game's table (dotted ``env.params.<name>`` errors); defaults filled in."""
-    table = envs.game_module(game).PARAMS
+    """Check ``given`` against the game's table (dotted ``env.params.<name>`` errors); defaults filled in by
+    the game's own ``resolve_params`` where it has one (matrix_v0: ``payoffs`` without ``game`` is custom)."""
+    module = envs.game_module(game)
+    table = module.PARAMS
     by_name = {p.name: p for p in table}
     given = dict(given)
     for key, value in list(given.items()):
@@ -245,9 +247,10 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
             text = str(err)
             allowed = text.split("; expected ", 1)[1] if "; expected " in text else param.allowed()
             raise _own_error(_not_allowed(f"env.params.{key}", value, allowed)) from None
+    resolver = getattr(module, "resolve_params", None)
     try:
-        return resolve(game, table, given)
-    except ParamError as err:  # pragma: no cover - every case is caught above; kept as a one-line net
+        return resolver(given) if resolver is not None else resolve(game, table, given)
+    except ParamError as err:  # a rule between parameters (matrix_v0: a bundled game with payoffs)
         raise _own_error(f"env.params: {err}") from None
 
 

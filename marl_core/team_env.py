@@ -180,8 +180,8 @@ class TeamEnv:
 class GameTeamEnv(TeamEnv):
     """Our batched engine (:class:`envs.core.BatchedGame`) as a TeamEnv: one numpy step for all copies.
 
-    Our games run in lockstep and end by truncation for every copy at once, so the whole batch is reset
-    together when it ends. ``frozen`` comes from ``infos["frozen"]``, the state from ``game.state()``.
+    Our games run in lockstep and end after ``max_cycles`` steps for every copy at once (terminated or
+    truncated, as the game's ``horizon`` says), so the whole batch is reset together when it ends. ``frozen`` comes from ``infos["frozen"]``, the state from ``game.state()``.
     """
 
     def __init__(self, game: Any, seed: int, name: str | None = None, with_state: bool = True):

@@ -18,6 +18,7 @@ from scipy.stats import binomtest
 
 import envs.cleanup_v0 as cleanup
 import envs.harvest_v0 as harvest
+from envs.errors import ParamError
 
 CONFIDENCE = 1 - 1e-6
 
@@ -254,3 +255,61 @@ def test_cleanup_threshold_defaults_follow_the_references():
     assert p["spawn_prob_max"] == 0.05
     assert p["depletion_threshold"] == 0.4
     assert p["restoration_threshold"] == 0.0
+
+
+# --- episode end (horizon) --------------------------------------------------------------------------------
+
+def _end_flags_by_step(game, steps: int) -> list[tuple[bool, bool, bool, bool]]:
+    """(all terminated, any terminated, all truncated, any truncated) after each of ``steps`` steps."""
+    game.reset(seed=0)
+    out = []
+    for _ in range(steps):
+        _, _, term, trunc, _ = stay(game)
+        out.append((bool(term.all()), bool(term.any()), bool(trunc.all()), bool(trunc.any())))
+    return out
+
+
+@pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
+def test_grid_default_horizon_truncates_at_max_cycles(module):
+    layout = "harvest_tiny" if module is harvest else "cleanup_tiny"
+    game = module.vector_env(3, layout=layout, num_agents=2, view_radius=2, max_cycles=4)
+    # envs/grid.py docstring, step 7: the default "time_limit" truncates every agent at max_cycles
+    assert game.params["horizon"] == "time_limit"
+    assert _end_flags_by_step(game, 4) == [(False, False, False, False)] * 3 + [(False, False, True, True)]
+
+
+@pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
+def test_grid_terminal_horizon_terminates_at_max_cycles(module):
+    layout = "harvest_tiny" if module is harvest else "cleanup_tiny"
+    game = module.vector_env(3, layout=layout, num_agents=2, view_radius=2, max_cycles=4, horizon="terminal")
+    # envs/grid.py docstring, step 7: "terminal" terminates every agent at max_cycles and never truncates
+    assert _end_flags_by_step(game, 4) == [(False, False, False, False)] * 3 + [(True, True, False, False)]
+
+
+@pytest.mark.parametrize(("horizon", "terminated"), [("terminal", True), ("time_limit", False)])
+def test_grid_facade_ends_the_episode_for_both_horizons(horizon, terminated):
+    par = harvest.parallel_env(layout="harvest_tiny", num_agents=2, view_radius=2, max_cycles=2, horizon=horizon)
+    par.reset(seed=0)
+    _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
+    assert not any(term.values()) and not any(trunc.values())          # step 1 of 2: the episode goes on
+    _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
+    # envs/grid.py docstring, step 7: one flag for every agent at max_cycles, the one the horizon names
+    assert term == dict.fromkeys(par.possible_agents, terminated)
+    assert trunc == dict.fromkeys(par.possible_agents, not terminated)
+    assert par.agents == []                                             # PettingZoo: ended agents leave
+
+
+@pytest.mark.parametrize("horizon", ["terminal", "time_limit"])
+def test_grid_project_checks_pass_for_both_horizons(horizon):
+    from envs.checks import check_game
+
+    check_game("harvest_v0", {"layout": "harvest_tiny", "num_agents": 2, "view_radius": 2, "horizon": horizon},
+               cycles=40)
+
+
+def test_grid_rejects_unknown_horizon_on_one_line():
+    with pytest.raises(ParamError) as err:
+        cleanup.vector_env(1, horizon="episodic")
+    # envs/errors.py: the message names the parameter, the value and what is allowed, on one line
+    assert str(err.value) == ("cleanup_v0: parameter 'horizon' = 'episodic' is not allowed; expected one of "
+                              "'terminal', 'time_limit'")

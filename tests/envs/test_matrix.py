@@ -1,4 +1,4 @@
-"""Tests of envs.matrix_v0: tables, repeated-game observation, truncation, batching, PettingZoo API."""
+"""Tests of envs.matrix_v0: tables, repeated-game observation, episode end (horizon), batching, PettingZoo API."""
 
 from __future__ import annotations
 
@@ -153,26 +153,78 @@ def test_infos_report_action_and_frozen():
     np.testing.assert_array_equal(infos["frozen"], 0)
 
 
-def test_truncation_at_max_cycles():
+def test_default_horizon_terminates_every_agent_at_max_cycles():
+    assert matrix.parallel_env().params["horizon"] == "terminal"   # module docstring: the default
     par = matrix.parallel_env(max_cycles=3)
     par.reset(seed=0)
     seen = []
     while par.agents:
         _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
-        assert not any(term.values())                        # module docstring: never terminates
-        seen.append(all(trunc.values()))
-    assert seen == [False, False, True]
+        assert not any(trunc.values())                       # module docstring: "terminal" never truncates
+        seen.append((all(term.values()), any(term.values())))
+    assert seen == [(False, False), (False, False), (True, True)]   # module docstring: every agent at once
     with pytest.raises(ActionError, match="after the episode ended"):
         par.step({"agent_0": 0, "agent_1": 0})
 
 
-def test_one_shot_game_truncates_after_one_round():
-    game = matrix.vector_env(2, max_cycles=1)
+def test_time_limit_horizon_truncates_every_agent_at_max_cycles():
+    par = matrix.parallel_env(max_cycles=3, horizon="time_limit")
+    par.reset(seed=0)
+    seen = []
+    while par.agents:
+        _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
+        assert not any(term.values())                        # module docstring: "time_limit" never terminates
+        seen.append((all(trunc.values()), any(trunc.values())))
+    assert seen == [(False, False), (False, False), (True, True)]
+    with pytest.raises(ActionError, match="after the episode ended"):
+        par.step({"agent_0": 0, "agent_1": 0})
+
+
+@pytest.mark.parametrize(("horizon", "terminated"), [("terminal", True), ("time_limit", False)])
+def test_one_shot_game_ends_after_one_round(horizon, terminated):
+    game = matrix.vector_env(2, max_cycles=1, horizon=horizon)
     game.reset(seed=0)
     _, _, term, trunc, _ = game.step([[0, 0], [1, 1]])
-    assert trunc.all() and not term.any()
+    # module docstring, Episode end: all terminated ("terminal") or all truncated ("time_limit"), never both
+    np.testing.assert_array_equal(term, np.full((2, 2), terminated))
+    np.testing.assert_array_equal(trunc, np.full((2, 2), not terminated))
     with pytest.raises(ActionError, match="max_cycles = 1"):
         game.step([[0, 0], [1, 1]])
+
+
+def test_horizon_param_is_declared_and_listed():
+    param = next(p for p in matrix.PARAMS if p.name == "horizon")
+    assert (param.kind, param.default, param.choices) == (str, "terminal", ("terminal", "time_limit"))
+    listed = {p["name"]: p for p in envs.list_envs()["matrix_v0"]}
+    assert listed["horizon"]["default"] == "terminal"
+    assert listed["horizon"]["allowed"] == "one of 'terminal', 'time_limit'"
+
+
+def test_rejects_unknown_horizon_on_one_line():
+    with pytest.raises(ParamError) as err:
+        matrix.parallel_env(horizon="forever")
+    # envs/errors.py: the message names the parameter, the value and what is allowed, on one line
+    assert str(err.value) == ("matrix_v0: parameter 'horizon' = 'forever' is not allowed; expected one of "
+                              "'terminal', 'time_limit'")
+
+
+@pytest.mark.filterwarnings("ignore:Observation numpy array is all zeros")  # the first round, by design
+@pytest.mark.parametrize("horizon", ["terminal", "time_limit"])
+def test_project_checks_pass_for_both_horizons(horizon):
+    from envs.checks import check_game
+
+    check_game("matrix_v0", {"horizon": horizon, "max_cycles": 4}, cycles=40)
+    check_game("matrix_v0", {"horizon": horizon, "game": "public_goods", "num_agents": 3, "max_cycles": 1},
+               cycles=10)
+
+
+def test_resolve_params_makes_the_game_custom_when_payoffs_are_given():
+    # module docstring: game is "custom" when payoffs is given and game is not
+    assert matrix.resolve_params({"payoffs": [3, 3, 0, 5, 5, 0, 1, 1]})["game"] == "custom"
+    assert matrix.resolve_params({"payoffs": None})["game"] == "prisoners_dilemma"
+    assert matrix.resolve_params({})["game"] == "prisoners_dilemma"
+    resolved = matrix.resolve_params({"payoffs": [1, 2, 3, 4, 5, 6, 7, 8], "max_cycles": 2})
+    assert matrix.resolve_params(resolved) == resolved == matrix.vector_env(1, **resolved).params
 
 
 def test_batched_engine_matches_single_envs():
@@ -265,7 +317,8 @@ def test_pettingzoo_render_test():
 def test_module_factories_and_registry():
     assert matrix.NAME == "matrix_v0"
     assert matrix.MatrixParallelEnv.metadata["name"] == "matrix_v0"
-    assert {p.name for p in matrix.PARAMS} == {"game", "payoffs", "num_agents", "max_cycles", "multiplier"}
+    assert {p.name for p in matrix.PARAMS} == {"game", "payoffs", "num_agents", "max_cycles", "horizon",
+                                              "multiplier"}
     assert isinstance(envs.make("matrix_v0"), matrix.MatrixParallelEnv)
     assert envs.make_vector("matrix_v0", 3).num_envs == 3
     par = matrix.parallel_env()
