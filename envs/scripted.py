@@ -1,11 +1,17 @@
-"""Scripted teams for the grid games: fixed rules, no learning, for demos and for tests of the dilemmas.
+"""Scripted teams for the grid games: fixed rules, no learning, for demos, tests and baselines.
 
-Each function returns a policy for a PettingZoo ``ParallelEnv`` of a grid game: ``policy(obs) -> actions``.
-The policies read the whole map from the env (they are scripted, not learners) and never tag.
+Each team is a rule that picks every agent's action in one copy ``b`` of a batched game
+(:class:`envs.grid.GridGame`) from the whole map (they are scripted, not learners) and never tags:
 
-* :func:`greedy_team` — every agent walks to the nearest resource and takes it.
-* :func:`restrained_team` — the same, except that nobody takes the last resource of an orchard patch.
-* :func:`cleanup_team` — ``cleaners`` agents keep the river clean, the others pick resources greedily.
+* ``greedy`` (:func:`greedy_team`) — every agent walks to the nearest resource and takes it.
+* ``restrained`` (:func:`restrained_team`) — the same, except that nobody takes the last resource of an
+  orchard patch.
+* ``nobody_cleans`` / ``one_cleaner`` (:func:`cleanup_team`) — ``cleaners`` agents keep the river clean,
+  the others pick resources greedily.
+
+Two ways to use a team: on a PettingZoo ``ParallelEnv`` of a grid game (``greedy_team(env)`` returns
+``policy(obs_dict) -> actions_dict``), or on a batched game of B copies (:func:`batched_team` returns
+``policy() -> actions (B, N)``, one Python pass per copy; the trainer's baselines use this).
 """
 
 from __future__ import annotations
@@ -15,7 +21,7 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["distance_to", "greedy_team", "restrained_team", "cleanup_team"]
+__all__ = ["distance_to", "greedy_team", "restrained_team", "cleanup_team", "batched_team", "TEAMS"]
 
 _MOVES = ((1, -1, 0), (2, 1, 0), (3, 0, -1), (4, 0, 1))  # action, dy, dx
 _FAR = np.iinfo(np.int32).max // 2
@@ -46,14 +52,14 @@ def _step_toward(dist: np.ndarray, y: int, x: int, blocked: set) -> tuple[int, i
     return best
 
 
-def _picker(env: Any, restrained: bool, skip: set[int]) -> Callable[[], dict[int, int]]:
-    game = env.game
+def _picker(game: Any, restrained: bool, skip: set[int]) -> Callable[[int], dict[int, int]]:
+    """``pick(b)``: the actions of the agents not in ``skip`` in copy ``b`` (agent index -> action)."""
     passable = ~game.layout.wall
     patches = game.layout.patches()
 
-    def pick() -> dict[int, int]:
-        res = game.interior(game.resource)[0]
-        pos = game.agent_positions(0)
+    def pick(b: int) -> dict[int, int]:
+        res = game.interior(game.resource)[b]
+        pos = game.agent_positions(b)
         if restrained:
             left = np.bincount(patches[res], minlength=patches.max() + 1)
             targets = res & (left[np.maximum(patches, 0)] >= 2)
@@ -63,7 +69,7 @@ def _picker(env: Any, restrained: bool, skip: set[int]) -> Callable[[], dict[int
         taken: set = set()
         actions = {}
         for i, (y, x) in enumerate(pos):
-            if i in skip or game.out[0, i]:
+            if i in skip or game.out[b, i]:
                 continue
             action, ny, nx = _step_toward(dist, int(y), int(x), taken)
             if restrained and res[ny, nx]:
@@ -79,54 +85,42 @@ def _picker(env: Any, restrained: bool, skip: set[int]) -> Callable[[], dict[int
     return pick
 
 
-def _as_policy(env: Any, pick: Callable[[], dict[int, int]]) -> Callable[[dict], dict]:
+def _as_policy(env: Any, pick: Callable[[int], dict[int, int]]) -> Callable[[dict], dict]:
     def policy(obs: dict) -> dict:
-        chosen = pick()
+        chosen = pick(0)
         return {a: chosen.get(i, 0) for i, a in enumerate(env.possible_agents) if a in obs}
 
     return policy
 
 
-def greedy_team(env: Any) -> Callable[[dict], dict]:
-    """Every agent walks to the nearest resource and takes it."""
-    return _as_policy(env, _picker(env, restrained=False, skip=set()))
-
-
-def restrained_team(env: Any) -> Callable[[dict], dict]:
-    """Like :func:`greedy_team`, but no agent takes the last resource standing in an orchard patch."""
-    return _as_policy(env, _picker(env, restrained=True, skip=set()))
-
-
-def cleanup_team(env: Any, cleaners: int = 1) -> Callable[[dict], dict]:
-    """Agents ``0 .. cleaners-1`` clean the river; the others take resources greedily."""
-    game = env.game
+def _cleaner_picker(game: Any, cleaners: int) -> Callable[[int], dict[int, int]]:
     if game.clean_action < 0:
         raise ValueError("cleanup_team needs a game with a clean beam (cleanup_v0)")
     passable = ~game.layout.wall
     roles = set(range(min(cleaners, game.num_agents)))
-    harvest = _picker(env, restrained=False, skip=roles)
+    harvest = _picker(game, restrained=False, skip=roles)
     P, Wp = game.P, game.Wp
     offsets = game._beam_clean  # (4, length, width) flat offsets per facing
 
-    def covers_waste(cell: int, facing: int) -> bool:
+    def covers_waste(b: int, cell: int, facing: int) -> bool:
         cells = cell + offsets[facing]
         reach = np.logical_and.accumulate(~game.wall_f[cells], axis=0)
-        return bool((game.waste.reshape(-1)[cells] & reach).any())  # copy 0 is the first block
+        return bool((game.waste[b].reshape(-1)[cells] & reach).any())
 
-    def pick() -> dict[int, int]:
-        actions = harvest()
-        waste = game.interior(game.waste)[0]
+    def pick(b: int) -> dict[int, int]:
+        actions = harvest(b)
+        waste = game.interior(game.waste)[b]
         dist = distance_to(waste, passable) if waste.any() else None
         for i in roles:
-            if game.out[0, i]:
+            if game.out[b, i]:
                 continue
-            cell, facing = int(game.cell[0, i]), int(game.facing[0, i])
+            cell, facing = int(game.cell[b, i]), int(game.facing[b, i])
             if dist is None:
                 actions[i] = 0
-            elif covers_waste(cell, facing):
+            elif covers_waste(b, cell, facing):
                 actions[i] = game.clean_action
             else:
-                turn = [a for a, f in ((1, 0), (2, 1), (3, 2), (4, 3)) if covers_waste(cell, f)]
+                turn = [a for a, f in ((1, 0), (2, 1), (3, 2), (4, 3)) if covers_waste(b, cell, f)]
                 if turn:
                     actions[i] = turn[0]  # face the waste (a blocked move still turns)
                 else:
@@ -134,4 +128,45 @@ def cleanup_team(env: Any, cleaners: int = 1) -> Callable[[dict], dict]:
                     actions[i] = _step_toward(dist, y - P, x - P, set())[0]
         return actions
 
-    return _as_policy(env, pick)
+    return pick
+
+
+# team name -> (games it plays, picker factory over a batched game)
+TEAMS: dict[str, tuple[tuple[str, ...], Callable[[Any], Callable[[int], dict[int, int]]]]] = {
+    "greedy": (("harvest_v0",), lambda game: _picker(game, restrained=False, skip=set())),
+    "restrained": (("harvest_v0",), lambda game: _picker(game, restrained=True, skip=set())),
+    "nobody_cleans": (("cleanup_v0",), lambda game: _cleaner_picker(game, cleaners=0)),
+    "one_cleaner": (("cleanup_v0",), lambda game: _cleaner_picker(game, cleaners=1)),
+}
+
+
+def greedy_team(env: Any) -> Callable[[dict], dict]:
+    """Every agent walks to the nearest resource and takes it."""
+    return _as_policy(env, _picker(env.game, restrained=False, skip=set()))
+
+
+def restrained_team(env: Any) -> Callable[[dict], dict]:
+    """Like :func:`greedy_team`, but no agent takes the last resource standing in an orchard patch."""
+    return _as_policy(env, _picker(env.game, restrained=True, skip=set()))
+
+
+def cleanup_team(env: Any, cleaners: int = 1) -> Callable[[dict], dict]:
+    """Agents ``0 .. cleaners-1`` clean the river; the others take resources greedily."""
+    return _as_policy(env, _cleaner_picker(env.game, cleaners))
+
+
+def batched_team(game: Any, name: str) -> Callable[[], np.ndarray]:
+    """The scripted team ``name`` (a key of :data:`TEAMS`) on every copy of the batched ``game``:
+    ``policy() -> actions (B, N)`` for the game's current state (agents not moved by the rule stay)."""
+    if name not in TEAMS:
+        raise ValueError(f"scripted team = {name!r} is not allowed; expected one of {', '.join(TEAMS)}")
+    pick = TEAMS[name][1](game)
+
+    def policy() -> np.ndarray:
+        actions = np.zeros((game.num_envs, game.num_agents), np.int64)
+        for b in range(game.num_envs):
+            for i, a in pick(b).items():
+                actions[b, i] = a
+        return actions
+
+    return policy

@@ -118,10 +118,13 @@ def _fmt(x) -> str:
 
 
 def _table(summary: dict) -> str:
-    rand = summary.get("random") or {}
-    lines = [f"{'':<16}{'learned':>10}{'random':>10}"]
+    """The learned team beside every baseline team (columns), one row per metric."""
+    teams = summary.get("baselines") or {"random": summary.get("random") or {}}
+    width = max(10, *(len(n) + 2 for n in teams))
+    lines = [f"{'':<16}{'learned':>{width}}" + "".join(f"{n:>{width}}" for n in teams)]
     for key in ("return_mean", "efficiency", "equality", "sustainability", "peace"):
-        lines.append(f"{key:<16}{_fmt(summary.get(key)):>10}{_fmt(rand.get(key)):>10}")
+        lines.append(f"{key:<16}{_fmt(summary.get(key)):>{width}}"
+                     + "".join(f"{_fmt(teams[n].get(key)):>{width}}" for n in teams))
     return "\n".join(lines)
 
 

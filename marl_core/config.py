@@ -44,9 +44,9 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       total_steps: 100000
       seed: 0
       eval_every: 10000
-      eval_episodes: 4
+      eval_episodes: 20
       checkpoint_every: 20000
-      random_episodes: 4
+      baselines: auto
     log:
       tensorboard: true
       gif_every: 5
@@ -386,10 +386,24 @@ class TrainConfig(BaseModel):
     total_steps: _PositiveInt = Field(100_000, description="env steps to train, summed over the copies")
     seed: _Int = Field(0, ge=0, description="seed of the env copies, the networks and exploration")
     eval_every: _PositiveInt = Field(10_000, description="env steps between evaluations")
-    eval_episodes: _PositiveInt = Field(4, description="episodes per evaluation")
+    eval_episodes: _PositiveInt = Field(20, description="episodes per evaluation (the final metrics and the "
+                                        "baselines too), played side by side on up to 64 copies")
     checkpoint_every: _PositiveInt = Field(20_000, description="env steps between checkpoints")
-    random_episodes: _PositiveInt = Field(4, description="episodes of a uniformly random team measured at "
-                                          "the start, as a baseline")
+    baselines: Literal["auto"] | list[str] = Field("auto", description="non-learning teams measured beside "
+                                                   "the learned one on the same episodes: auto = every team "
+                                                   "that applies to the env (marl_core.baselines), or a list "
+                                                   "of team names (random is always measured)")
+
+    @model_validator(mode="after")
+    def _check_baselines(self) -> TrainConfig:
+        if self.baselines != "auto":
+            from marl_core.baselines import KNOWN
+
+            for name in self.baselines:
+                if name not in KNOWN:
+                    raise _own_error(_not_allowed("train.baselines", name,
+                                                  f"'auto' or a list of: {', '.join(KNOWN)}"))
+        return self
 
 
 class LogConfig(BaseModel):

@@ -6,13 +6,16 @@ checkpoint. Layout of a run directory::
     config.yaml          the resolved config (every default filled in)
     events.out.tfevents.*  TensorBoard: eval/*, train/*, hparams, GIFs of evaluation episodes
     metrics.jsonl        one JSON line per evaluation (env_steps, returns, the four social metrics, ...)
-    summary.json         the last evaluation beside the random team's figures (contract keys below)
+    summary.json         the final evaluation beside the baseline teams' figures (contract keys below)
     episode.gif          one episode of the final evaluation (when log.gif_every > 0)
     checkpoints/last.pt  learner, optimiser, schedule and RNG states, counters (atomic, weights only)
     policies/<agent>.pt  each agent's final policy, loadable alone (``marl_core.policy.AgentPolicy``)
 
 ``summary.json`` (contract): ``env_steps``, ``episodes``, per-agent ``returns``, ``efficiency``,
-``equality``, ``sustainability``, ``peace``, and the random team's figures under ``random``.
+``equality``, ``sustainability``, ``peace``, the random team's figures under ``random``, and under
+``baselines`` every non-learning team (:mod:`marl_core.baselines`: random, no-op, the game's scripted teams)
+-> the same keys as the learned team. The baselines play once, at the start, on the evaluation copies and
+seeds that every evaluation of the learned team uses, for ``train.eval_episodes`` episodes.
 
 What a resume restores: the learner (networks, targets, optimisers, exploration schedule, RNG states) and
 the counters. What it does not: the replay contents (refilled from fresh experience; updates resume once a
@@ -33,20 +36,23 @@ from typing import Any
 import torch
 
 from envs.metrics import METRIC_NAMES
+from marl_core.baselines import measure as measure_baselines
+from marl_core.baselines import team_names
 from marl_core.config import RunConfig, config_hash, dump_config, load_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
 from marl_core.learners import build_learner
 from marl_core.policy import atomic_torch_save, safe_torch_load
 from marl_core.replay import Replay
-from marl_core.rollout import Collector, evaluate, random_policy
+from marl_core.rollout import Collector, evaluate
 from marl_core.targets import linear_schedule
 from marl_core.team_env import make_team_env
 
 __all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run"]
 
-CHECKPOINT_FORMAT = 1
+CHECKPOINT_FORMAT = 2  # 2: baselines beside the random team
 EVAL_SEED_OFFSET = 1_000_003  # evaluation episodes use seeds apart from training's
+MAX_EVAL_COPIES = 64  # evaluation plays up to this many episodes side by side
 
 
 def _result(ev: dict[str, Any]) -> dict[str, Any]:
@@ -64,12 +70,11 @@ class _Run:
         torch.set_num_threads(cfg.learner.torch_threads)
         seed = cfg.train.seed
         e = cfg.env
-        wants_state = cfg.learner.kind == "maddpg" and cfg.learner.critic_input == "state"
+        # the learner decides whether it reads the state (``uses_state``); only these configs may want it
+        wants_state = cfg.learner.kind == "maddpg" and cfg.learner.critic_input != "observations"
         self.env = make_team_env(e.name, e.params, e.num_envs, seed, with_state=wants_state)
         self.spec = self.env.spec
-        n_eval = min(cfg.train.eval_episodes, e.num_envs)
-        self.eval_env = make_team_env(e.name, e.params, n_eval, seed + EVAL_SEED_OFFSET,
-                                      render=cfg.log.gif_every > 0, with_state=False)
+        self.eval_env = _eval_env(cfg, cfg.train.eval_episodes, render=cfg.log.gif_every > 0)
         self.learner = build_learner(self.spec, cfg.learner, seed)
         L = cfg.learner
         state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
@@ -82,7 +87,7 @@ class _Run:
             n_step=getattr(L, "n_step", 1), gamma=L.gamma, prioritized=getattr(L, "prioritized", False),
             alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed)
         self.env_steps = self.vec_steps = self.episodes = self.evals = 0
-        self.random: dict[str, Any] | None = None
+        self.baselines: dict[str, Any] | None = None
         self.last_eval: dict[str, Any] | None = None
         self.progress = progress
         self.writer = None
@@ -93,7 +98,7 @@ class _Run:
             "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
             "counters": {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
                          "evals": self.evals},
-            "random": json.dumps(finite(self.random)), "last_eval": json.dumps(finite(self.last_eval)),
+            "baselines": json.dumps(finite(self.baselines)), "last_eval": json.dumps(finite(self.last_eval)),
             "learner": self.learner.state_dict(), "replay_rng": self.replay.rng_state(),
             "torch_rng": torch.get_rng_state(),
         }, self.out / "checkpoints" / "last.pt")
@@ -110,7 +115,7 @@ class _Run:
         c = data["counters"]
         self.env_steps, self.vec_steps = int(c["env_steps"]), int(c["vec_steps"])
         self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
-        self.random, self.last_eval = json.loads(data["random"]), json.loads(data["last_eval"])
+        self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
         self.learner.load_state_dict(data["learner"])
         self.replay.set_rng_state(data["replay_rng"])
         torch.set_rng_state(data["torch_rng"])
@@ -141,8 +146,9 @@ class _Run:
             self.scalar(f"eval/{m}", ev[m])
         for a, r in ev["returns"].items():
             self.scalar(f"eval/return/{a}", r)
-        for m in (*METRIC_NAMES, "return_mean"):
-            self.scalar(f"random/{m}", self.random[m])
+        for team, res in self.baselines.items():
+            for m in (*METRIC_NAMES, "return_mean"):
+                self.scalar(f"{'random' if team == 'random' else 'baseline/' + team}/{m}", res[m])
         if ev.get("frames") and self.writer is not None:
             from marl_core.tb import add_gif
 
@@ -164,10 +170,10 @@ class _Run:
             write_gif(ev["frames"], self.out / "episode.gif")
         return ev
 
-    def measure_random(self) -> None:
+    def measure_baselines(self) -> None:
         t = self.cfg.train
-        self.random = _result(evaluate(self.eval_env, random_policy(self.spec.num_actions, t.seed),
-                                       t.random_episodes, t.seed + EVAL_SEED_OFFSET))
+        self.baselines = measure_baselines(self.eval_env, _baseline_names(self.cfg), t.eval_episodes,
+                                           t.seed + EVAL_SEED_OFFSET, _result)
 
     # -- the loop
     def train(self) -> dict[str, Any]:
@@ -221,7 +227,7 @@ class _Run:
         for i, agent in enumerate(self.spec.agents):
             self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
-                   "random": self.random, "learner": self.cfg.learner.kind, "env": self.cfg.env.name,
+                   "random": self.baselines["random"], "baselines": self.baselines, "learner": self.cfg.learner.kind, "env": self.cfg.env.name,
                    "seed": self.cfg.train.seed}
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:
@@ -235,6 +241,18 @@ class _Run:
 
 
 # ---------------------------------------------------------------------- entry points
+def _eval_env(cfg: RunConfig, episodes: int, render: bool):
+    """The evaluation copies (up to ``MAX_EVAL_COPIES`` episodes side by side), seeded apart from training."""
+    e = cfg.env
+    return make_team_env(e.name, e.params, min(episodes, MAX_EVAL_COPIES), cfg.train.seed + EVAL_SEED_OFFSET,
+                         render=render, with_state=False)
+
+
+def _baseline_names(cfg: RunConfig) -> tuple[str, ...]:
+    wanted = cfg.train.baselines
+    return team_names(cfg.env.name) if wanted == "auto" else tuple(dict.fromkeys(["random", *wanted]))
+
+
 def _fresh_dir(out: Path) -> None:
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise RunDirError(f"run directory '{out}' already exists and is not empty; choose a new --out, or "
@@ -251,7 +269,7 @@ def run(cfg: RunConfig, out: str | Path,
     (out / "checkpoints").mkdir(exist_ok=True)
     dump_config(cfg, out / "config.yaml")
     r.open_logs(purge_step=None)
-    r.measure_random()
+    r.measure_baselines()
     return r.train()
 
 
@@ -278,10 +296,10 @@ def resume(out: str | Path,
     return r.train()
 
 
-
 def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path | None = None,
                  seed: int | None = None) -> dict[str, Any]:
-    """Evaluate the last checkpoint of a run with exploration off; the keys match ``summary.json``."""
+    """Evaluate the last checkpoint of a run with exploration off, beside the baseline teams played on the
+    same episodes and seeds; the keys match ``summary.json``."""
     out = Path(out)
     cfg = load_run(out)
     if not (out / "checkpoints" / "last.pt").is_file():
@@ -289,17 +307,17 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
     if episodes is not None and episodes < 1:
         raise RunDirError(f"--episodes = {episodes} is not allowed; expected an integer >= 1")
     n = episodes or cfg.train.eval_episodes
+    seed = cfg.train.seed + EVAL_SEED_OFFSET if seed is None else seed
     r = _Run(cfg, out, None)
     r.load_checkpoint()
-    env = make_team_env(cfg.env.name, cfg.env.params, min(n, cfg.env.num_envs), cfg.train.seed + EVAL_SEED_OFFSET,
-                        render=gif is not None)
-    ev = evaluate(env, lambda o: r.learner.act(o, explore=False), n,
-                  cfg.train.seed + EVAL_SEED_OFFSET if seed is None else seed, gif=gif is not None)
-    env.close()
     r.env.close()
     r.eval_env.close()
+    with _eval_env(cfg, n, render=gif is not None) as env:
+        ev = evaluate(env, lambda o: r.learner.act(o, explore=False), n, seed, gif=gif is not None)
+        baselines = measure_baselines(env, _baseline_names(cfg), n, seed, _result)
     if gif is not None:
         from envs.render import write_gif
 
         write_gif(ev["frames"], gif)
-    return {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": r.random}
+    return {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": baselines["random"],
+            "baselines": baselines}

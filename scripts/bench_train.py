@@ -41,8 +41,8 @@ the library default); ``learning_starts`` = the batch size rounded up to whole v
 ``--warmup-updates`` update rounds later (default 3), so first-call costs such as Adam's state
 allocation fall outside the window and every vector step of the window runs its update round;
 ``total_steps`` = warm-up + window; ``eval_every`` = ``total_steps`` (no evaluation inside the window;
-the loop's evaluation at ``total_steps`` comes after the window closes); ``eval_episodes`` and
-``random_episodes`` 1 (outside the window, they only cost time); TensorBoard, GIFs and the progress bar
+the loop's evaluation at ``total_steps`` comes after the window closes); ``eval_episodes`` 1
+and ``baselines: [random]`` (outside the window, they only cost time); TensorBoard, GIFs and the progress bar
 off; ``log_every`` and ``checkpoint_every`` at their defaults, so a checkpoint that falls inside the
 window is counted in ``everything_else`` as in a real run. The bare update loop runs first; without
 ``--steps`` the window is sized from its median repeat for about ``--seconds`` (default 30). The window
@@ -111,7 +111,7 @@ def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max
         "env": {"name": GAME, "params": params, "num_envs": num_envs},
         "learner": {"kind": kind, "learning_starts": learning_starts},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
-                  "eval_episodes": 1, "random_episodes": 1},
+                  "eval_episodes": 1, "baselines": ["random"]},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
     })
 

@@ -3,13 +3,15 @@
 ``write_report(sweep_dir)`` reads a sweep directory written by :func:`marl_core.ablation.runner.ablate`
 and writes ``sweep_dir/report/``::
 
-    report.md                     header (test, bootstrap, correction, warnings, failed runs), Table 1 per
-                                  metric (per-arm mean and IQM with 95% CIs, the random team's mean),
-                                  Table 2 per metric (each arm vs the baseline), links to the figures
+    report.md                     header, notes on method (test, intervals and their measured coverage,
+                                  correction), warnings, failed runs, Table 1 per metric (per-arm mean
+                                  and IQM with 95% intervals, each non-learning team's mean), the arms
+                                  that are not better than the strongest non-learning team, Table 2 per
+                                  metric (each arm vs the baseline arm), links to the figures
     runs.csv                      one row per run of the ledger, every state
-    figures/curve_<metric>.png    learning curves: mean over seeds, 95% bootstrap band, random team dashed
-    figures/bars_<metric>.png     IQM per arm with 95% stratified bootstrap CI, the baseline hatched
-    figures/axis_<key>_<metric>.png  for every numeric override key: the metric against its value
+    figures/curve_<metric>.png    learning curves: mean over seeds, 95% Student t band, random team dashed
+    figures/bars_<metric>.png     IQM per arm with its 95% trimmed-mean t interval, the baseline hatched
+    figures/axis_<key>_<metric>.png  for every numeric override key: the metric (mean, Student t) against it
 
 What is read: ``ledger.sqlite`` (through :class:`~marl_core.ablation.ledger.Ledger`), and for each done run
 ``runs/<run_id>/summary.json`` (its final metrics; the ledger's copy when the file is missing),
@@ -18,14 +20,22 @@ it, and the game and learner names in the header). Nothing is trained or loaded:
 torch, and matplotlib is imported only when the figures are drawn (with the Agg canvas, no pyplot and no
 global backend change).
 
-Statistics (all from :mod:`marl_core.ablation.stats`, Agarwal et al. 2021): per arm and metric the mean and
-interquartile mean with 95% percentile bootstrap intervals that resample seeds within the arm (one stratum
-per arm: an arm is one task); against the baseline, the difference of means with a bootstrap interval, a
-two-sided Mann–Whitney U test by default (no normality assumption; ``test="welch"`` for Welch's t-test),
-Holm's correction and the probability of improvement. The Holm family is, by default, one metric's
-comparisons of every arm with the baseline (``holm_family="metric"``); ``"all"`` corrects over every
-arm × metric comparison at once. NaN values (sustainability when no agent scores, equality when returns
-sum to <= 0) are dropped and counted.
+Statistics (all from :mod:`marl_core.ablation.stats`): per arm and metric the mean with its Student t
+interval and the interquartile mean (Agarwal et al. 2021) with its trimmed-mean t interval (Tukey–McLaughlin);
+against the baseline arm, the difference of means with its Welch t interval, a two-sided Mann–Whitney U test
+by default (no normality assumption; ``test="welch"`` for Welch's t-test), Holm's correction and the
+probability of improvement; learning curves with the Student t interval of the mean at each step. The
+coverage of every interval, measured by simulation at 3, 5 and 10 seeds (``stats.MEASURED_COVERAGE``), is
+printed in the notes on method. No interval resamples, so ``reps`` and ``seed`` change nothing (they are kept
+for callers). The Holm family is, by default, one metric's comparisons of every arm with the baseline
+(``holm_family="metric"``); ``"all"`` corrects over every arm × metric comparison at once. NaN values
+(sustainability when no agent scores, equality when returns sum to <= 0) are dropped and counted.
+
+Non-learning teams: each run's ``summary.json`` may carry ``baselines`` (team name -> the learned team's
+metric keys, e.g. ``random``, ``noop``, ``greedy``); an older summary without it contributes its top-level
+``random`` as the one team. Per arm and metric the report shows each team's mean over the arm's runs, and
+says in words where the arm is not better than the strongest team: where the lower end of the arm's
+interval of the mean is not above that team's mean.
 
 :func:`report_summary` returns every number the report shows as a dict; :func:`write_report` renders that
 dict, so the tables, figures and tests read one code path.
@@ -41,7 +51,6 @@ import numbers
 import os
 import re
 import tempfile
-import warnings
 from pathlib import Path
 from typing import Any
 
@@ -82,7 +91,7 @@ def _check_args(test: Any, reps: Any, seed: Any, holm_family: Any) -> None:
     if test not in stats.TESTS:
         raise ConfigError(f"test = {test!r} is not allowed; expected one of {', '.join(stats.TESTS)}")
     if isinstance(reps, bool) or not isinstance(reps, numbers.Integral) or reps < 1:
-        raise ConfigError(f"reps = {reps!r} is not allowed; expected an integer >= 1 (bootstrap resamples)")
+        raise ConfigError(f"reps = {reps!r} is not allowed; expected an integer >= 1 (kept for callers; unused)")
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, numbers.Integral) or seed < 0):
         raise ConfigError(f"seed = {seed!r} is not allowed; expected an integer >= 0 or None")
     if holm_family not in HOLM_FAMILIES:
@@ -161,6 +170,15 @@ def _dig(data: Any, key: str) -> Any:
     return node
 
 
+def _team_metrics(team: dict[str, Any]) -> dict[str, float]:
+    """A non-learning team's entry of summary.json as metric -> float (NaN where missing)."""
+    out = {m: _float(team.get(m)) for m in METRICS}
+    returns = team.get("returns")
+    if not math.isfinite(out["return_mean"]) and isinstance(returns, dict) and returns:
+        out["return_mean"] = float(np.mean([_float(v) for v in returns.values()]))
+    return out
+
+
 def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
     """One ledger row with its run directory's files read (final metrics, curve, config)."""
     run_id = row["run_id"]
@@ -173,7 +191,7 @@ def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
         "duration": row.get("duration"), "overrides": overrides, "run_dir": str(run_dir),
         "error": _last_line(row.get("error")), "env_steps": None, "episodes": None,
         **dict.fromkeys(METRICS, math.nan), "returns": {}, "random": dict.fromkeys(METRICS, math.nan),
-        "source": None, "config": None, "curve": None, "problems": [],
+        "baselines": {}, "source": None, "config": None, "curve": None, "problems": [],
     }
     if row["state"] != "done":
         return rec
@@ -199,9 +217,16 @@ def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
         rec["returns"] = {str(a): _float(v) for a, v in returns.items()}
     if not math.isfinite(rec["return_mean"]) and rec["returns"]:  # older summaries: derive it
         rec["return_mean"] = float(np.mean(list(rec["returns"].values())))
+    teams = summary.get("baselines")
+    if isinstance(teams, dict):
+        rec["baselines"] = {str(t): _team_metrics(v) for t, v in teams.items() if isinstance(v, dict)}
     random = summary.get("random")
     if isinstance(random, dict):
-        rec["random"] = {m: _float(random.get(m)) for m in METRICS}
+        rec["random"] = _team_metrics(random)
+    elif "random" in rec["baselines"]:
+        rec["random"] = dict(rec["baselines"]["random"])
+    if not rec["baselines"] and isinstance(random, dict):  # an older summary: the random team alone
+        rec["baselines"] = {"random": dict(rec["random"])}
     rec["config"] = _read_yaml(run_dir / "config.yaml", problems)
     rec["curve"] = _read_curve(run_dir / "metrics.jsonl", problems)
     return rec
@@ -225,28 +250,6 @@ def _load(sweep_dir: str | os.PathLike) -> dict[str, Any]:
 
 
 # ================================================================================== statistics
-def _curve_band(values: np.ndarray, reps: int, rng: np.random.Generator,
-                confidence: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Mean over seeds at every step and its percentile bootstrap interval, all steps at once.
-
-    Seeds (whole runs) are resampled with replacement, the same resample at every step; NaN values are
-    left out of each mean. One seed gives a band collapsed onto the mean.
-
-    Shape: values: (n_seeds, T) -> mean, low, high: (T,) each.
-    """
-    n = values.shape[0]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # a step where every seed is NaN gives NaN
-        mean = np.nanmean(values, axis=0)
-        if n == 1:
-            return mean, mean.copy(), mean.copy()
-        idx = rng.integers(0, n, size=(reps, n))
-        boot = np.nanmean(values[idx], axis=1)  # (reps, T)
-        tail = 100.0 * (1.0 - confidence) / 2.0
-        low, high = np.nanpercentile(boot, [tail, 100.0 - tail], axis=0)
-    return mean, low, high
-
-
 def _canonical(value: Any) -> str:
     return json.dumps(value, sort_keys=True, default=str)
 
@@ -310,6 +313,32 @@ def _axes(arms: list[str], by_arm: dict[str, list[dict]], done: dict[str, list[d
     return out
 
 
+def _finite_mean(values: list[float]) -> float:
+    """The mean of the finite values (NaN when there are none)."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    return float(v.mean()) if v.size else math.nan
+
+
+def _not_better(arm: str, metric: str, entry: dict[str, Any]) -> dict[str, Any]:
+    """The record and the sentence of an arm whose interval of the mean is not above the strongest team."""
+    low, high = entry["mean_ci"]
+    team, value = entry["best_team"], entry["best_team_mean"]
+    if not math.isfinite(low):
+        why = "no_interval"
+        because = ("1 seed, no interval" if entry["n"] < 2 else "no finite interval: a run is infinite")
+        text = (f"`{arm}`: {metric} {_num(entry['mean'])} ({because}) cannot be shown better than the "
+                f"`{team}` team's {_num(value)}" + (" (an interval needs at least 2 seeds)" if entry["n"] < 2
+                                                     else ""))
+    else:
+        why = "below" if high < value else "reaches_below"
+        where = "the whole interval lies below it" if why == "below" else "interval reaches below it"
+        text = (f"`{arm}`: {metric} {_with_ci(entry['mean'], entry['mean_ci'])} is not better than the "
+                f"`{team}` team's {_num(value)} ({where})")
+    return {"arm": arm, "metric": metric, "mean": entry["mean"], "mean_ci": entry["mean_ci"], "n": entry["n"],
+            "team": team, "team_mean": value, "reason": why, "sentence": text}
+
+
 def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                holm_family: str) -> dict[str, Any]:
     runs = data["runs"]
@@ -328,17 +357,29 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
         warns.append(f"The recorded baseline `{baseline}` has no runs in the ledger; nothing is compared.")
 
     # ---- per arm
+    teams = list(dict.fromkeys(t for a in arms for r in done[a] for t in r["baselines"]))
     arm_info: dict[str, Any] = {}
+    not_better: list[dict[str, Any]] = []
     for a in arms:
         states = {s: sum(r["state"] == s for r in by_arm[a]) for s in ("done", "failed", "pending", "running")}
         per_metric = {}
         for m in METRICS:
             x = np.array([r[m] for r in done[a]], dtype=float)
             s = stats.summarize(x, reps=reps, seed=seed, confidence=CONFIDENCE)
-            rand = np.array([r["random"][m] for r in done[a]], dtype=float)
-            rand = rand[np.isfinite(rand)]
-            per_metric[m] = {**s, "nan_dropped": int(np.isnan(x).sum()),
-                             "random_mean": float(rand.mean()) if rand.size else math.nan}
+            team_means = {t: _finite_mean([r["baselines"].get(t, {}).get(m, math.nan) for r in done[a]])
+                          for t in teams}
+            team_means = {t: v for t, v in team_means.items() if math.isfinite(v)}
+            best = max(team_means, key=team_means.__getitem__) if team_means else None
+            entry = {**s, "nan_dropped": int(np.isnan(x).sum()),
+                     "random_mean": _finite_mean([r["random"][m] for r in done[a]]),
+                     "teams": team_means, "best_team": best,
+                     "best_team_mean": team_means[best] if best is not None else math.nan,
+                     "beats_best_team": None}
+            if best is not None and math.isfinite(s["mean"]):
+                entry["beats_best_team"] = bool(s["mean_ci"][0] > entry["best_team_mean"])  # NaN: False
+                if not entry["beats_best_team"]:
+                    not_better.append(_not_better(a, m, entry))
+            per_metric[m] = entry
         arm_info[a] = {"overrides": dict(by_arm[a][0]["overrides"]), "runs": len(by_arm[a]),
                        "done": states["done"], "states": states,
                        "seeds_done": [r["seed"] for r in done[a]], "metrics": per_metric}
@@ -375,7 +416,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                 curves[a][m] = {"mean": [], "ci_low": [], "ci_high": []}
                 continue
             values = np.array([[_float(r["curve"][s].get(m)) for s in steps] for r in with_curve])
-            mean, low, high = _curve_band(values, reps, np.random.default_rng(seed), CONFIDENCE)
+            mean, low, high = stats.mean_band(values, CONFIDENCE)  # Student t at each step; NaN below 2 seeds
             curves[a][m] = {"mean": mean.tolist(), "ci_low": low.tolist(), "ci_high": high.tolist()}
 
     # ---- warnings
@@ -393,9 +434,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
         if n == 0:
             warns.append(f"Arm `{a}` has no done seed (of {arm_info[a]['runs']}): it has no results.")
         elif n == 1:
-            warns.append(f"Arm `{a}` has 1 done seed (of {arm_info[a]['runs']}): its intervals collapse to "
-                         "that single value, so they show no uncertainty at all; it cannot be tested "
-                         "meaningfully.")
+            warns.append(f"Arm `{a}` has 1 done seed (of {arm_info[a]['runs']}): no interval can be computed "
+                         "from one seed (shown as n/a), and it cannot be tested meaningfully.")
         elif n < FEW_SEEDS:
             warns.append(f"Arm `{a}` has {n} done seeds (of {arm_info[a]['runs']}), fewer than {FEW_SEEDS}: "
                          "its intervals are wide and rough, its tests weak.")
@@ -428,6 +468,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     return {
         "sweep_dir": data["sweep_dir"], "baseline": baseline, "arms": arm_info, "arm_order": arms,
         "comparisons": comparisons, "curves": curves, "axes": _axes(arms, by_arm, done) if arms else {},
+        "baseline_teams": teams, "not_better": not_better, "coverage": stats.MEASURED_COVERAGE,
+        "interval_methods": stats.INTERVAL_METHODS,
         "warnings": warns, "failed": failed, "runs_total": total, "runs_done": n_done,
         "test": test, "reps": reps, "seed": seed, "confidence": CONFIDENCE, "holm_family": holm_family,
         "metrics": list(METRICS), "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
@@ -441,16 +483,23 @@ def report_summary(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps
 
     Keys: ``baseline``, ``arm_order`` (ledger order), ``arms`` (arm -> ``overrides``, ``runs``, ``done``,
     ``states``, ``seeds_done`` and ``metrics``: metric -> :func:`~marl_core.ablation.stats.summarize`'s
-    ``n, mean, mean_ci, iqm, iqm_ci, std`` plus ``nan_dropped`` and ``random_mean``), ``comparisons``
+    ``n, mean, mean_ci, iqm, iqm_ci, std`` plus ``nan_dropped``, ``random_mean``, ``teams`` (non-learning
+    team -> its mean over the arm's done runs), ``best_team`` and ``best_team_mean`` (the strongest team,
+    or None / NaN without any) and ``beats_best_team`` (whether the lower end of ``mean_ci`` is above
+    ``best_team_mean``; None when there is no team or no mean)), ``baseline_teams`` (every team seen, in
+    order), ``not_better`` (one record per arm and metric that does not beat its strongest team: ``arm``,
+    ``metric``, ``mean``, ``mean_ci``, ``n``, ``team``, ``team_mean``, ``reason`` (``"reaches_below"``,
+    ``"below"`` or ``"no_interval"``) and the report's ``sentence``), ``coverage`` (``stats.MEASURED_COVERAGE``),
+    ``interval_methods`` (``stats.INTERVAL_METHODS``), ``comparisons``
     (arm -> metric -> :func:`~marl_core.ablation.stats.compare`'s dict plus ``p_holm``; empty with one
     arm), ``curves`` (arm -> ``env_steps``, ``seeds`` and per metric ``mean``, ``ci_low``, ``ci_high``),
     ``axes`` (varying override key -> ``values`` per arm, ``numeric``, ``groups``), ``warnings`` (markdown
     lines), ``failed`` (run_id, arm, seed, last line of the error), ``runs`` (one flat record per ledger
     row), and the settings (``test``, ``reps``, ``seed``, ``confidence``, ``holm_family``).
 
-    Every bootstrap uses ``numpy.random.default_rng(seed)``, so ``summarize(x, reps, seed)`` and
-    ``compare(arm, baseline, test, reps=reps, seed=seed)`` on an arm's done runs (ordered by seed) give
-    the same numbers.
+    ``stats.summarize(x)`` and ``stats.compare(arm, baseline, test)`` on an arm's done runs (ordered by seed)
+    give the same numbers; every interval is a formula (Student t, trimmed-mean t, Welch t), so ``reps`` and
+    ``seed`` are checked but change nothing.
 
     Raises:
         RunDirError: ``sweep_dir`` has no ledger.sqlite.
@@ -487,8 +536,10 @@ def _runs_csv(summary: dict[str, Any]) -> str:
     runs = summary["runs"]
     keys = list(dict.fromkeys(k for r in runs for k in r["overrides"]))
     agents = sorted({a for r in runs for a in r["returns"]})
+    teams = list(dict.fromkeys(t for r in runs for t in r["baselines"]))
     header = (["run_id", "arm", "seed", "state", "duration", *keys, "env_steps", "episodes", *METRICS,
-               *(f"return/{a}" for a in agents), *(f"random/{m}" for m in METRICS), "error"])
+               *(f"return/{a}" for a in agents), *(f"random/{m}" for m in METRICS),
+               *(f"baseline/{t}/{m}" for t in teams for m in METRICS), "error"])
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(header)
@@ -496,7 +547,8 @@ def _runs_csv(summary: dict[str, Any]) -> str:
         w.writerow([_cell(v) for v in (
             r["run_id"], r["arm"], r["seed"], r["state"], r["duration"],
             *(r["overrides"].get(k) for k in keys), r["env_steps"], r["episodes"], *(r[m] for m in METRICS),
-            *(r["returns"].get(a) for a in agents), *(r["random"][m] for m in METRICS), r["error"])])
+            *(r["returns"].get(a) for a in agents), *(r["random"][m] for m in METRICS),
+            *(r["baselines"].get(t, {}).get(m) for t in teams for m in METRICS), r["error"])])
     return buf.getvalue()
 
 
@@ -533,6 +585,46 @@ def _test_sentence(test: str) -> str:
             "default, Mann–Whitney U, assumes no normality.")
 
 
+_COVERAGE_ROWS = (("mean", "mean of an arm (Table 1)"), ("iqm", "IQM of an arm (Table 1, bar figures)"),
+                  ("difference", "difference of means (Table 2)"), ("curve", "learning-curve band"))
+
+
+def _coverage_lines(coverage: dict[str, dict[int, float]], methods: dict[str, str]) -> list[str]:
+    """The notes' coverage table and what it was measured on (indented under the bullet)."""
+    ns = sorted(coverage["mean"])
+    pad = "  "
+    out = [pad + "| interval | method | " + " | ".join(f"{n} seeds" for n in ns) + " |",
+           pad + "|---|---|" + "---|" * len(ns)]
+    for kind, label in _COVERAGE_ROWS:
+        cells = " | ".join(f"{coverage[kind][n]:.1%}" for n in ns)
+        out.append(f"{pad}| {label} | {methods[kind]} | {cells} |")
+    boot = coverage.get("iqm_percentile_bootstrap")
+    error = 200.0 * math.sqrt(0.95 * 0.05 / stats.COVERAGE_TRIALS)  # 2 binomial sd, in percentage points
+    out.append("")
+    out.append(
+        f"{pad}Measured by `marl_core.ablation.stats.coverage_table` ({stats.COVERAGE_TRIALS} simulated "
+        f"data sets per cell, seed {stats.COVERAGE_SEED}; simulation error about ±{error:.1f} points): scores "
+        "N(0, 1), whose IQM equals its mean because the normal distribution is symmetric; the difference with "
+        "unequal spreads (standard deviations 2 and 1, what Welch's interval is for); the curves are random "
+        "walks and the band's coverage is pointwise (the whole curve at once is covered less often). "
+        "Scores that are skewed or have outliers can be covered less often.")
+    if boot:
+        out.append("")
+        out.append(
+            f"{pad}For comparison, a {methods['iqm_percentile_bootstrap']} (resampling one arm's seeds) covers "
+            "the IQM only " + ", ".join(f"{boot[n]:.1%} at {n} seeds" for n in ns)
+            + f" ({stats.COVERAGE_BOOTSTRAP_TRIALS} data sets each), so it is not used.")
+    out.append("")
+    return out
+
+
+def _team_cell(s: dict[str, Any], team: str) -> str:
+    """A non-learning team's mean for Table 1, bold when it is the arm's strongest team."""
+    value = s["teams"].get(team, math.nan)
+    text = _num(value)
+    return f"**{text}**" if team == s["best_team"] else text
+
+
 def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: bool = True) -> str:
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
     test_name = _TEST_NAMES[summary["test"]]
@@ -559,12 +651,22 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     states = {st: sum(r["state"] == st for r in summary["runs"]) for st in ("failed", "pending", "running")}
     rest = ", ".join(f"{n} {st}" for st, n in states.items() if n)
     add(f"- **Runs:** {summary['runs_done']} of {summary['runs_total']} done" + (f" ({rest})" if rest else ""))
+    add("")
+
+    add("## Notes on method\n")
     add(f"- **Test:** {_test_sentence(summary['test'])}")
-    add(f"- **Intervals:** {pct} percentile bootstrap, {summary['reps']} resamples (seed {summary['seed']}), "
-        "stratified as in Agarwal et al. 2021 with one stratum per arm (an arm is one task, so its seeds are "
-        "resampled among themselves). Differences of means resample both arms independently.")
-    add("- **IQM:** interquartile mean, the mean of the middle 50% of seeds (equal to the mean below 4 "
-        "seeds); less swayed by one odd seed than the mean.")
+    add("- **IQM:** interquartile mean (Agarwal et al. 2021), the mean of the middle 50% of seeds "
+        "(floor(n/4) cut at each end; equal to the mean below 4 seeds); less swayed by one odd seed than the "
+        "mean.")
+    add(f"- **Intervals:** {pct}, each from a formula (nothing is resampled): the mean of an arm has the "
+        "Student t interval, mean ± t(n − 1)·s/√n; the IQM has the trimmed-mean t interval of Tukey and "
+        "McLaughlin (the IQM's 25% cut at each end, Yuen's winsorised standard error, h − 1 degrees of "
+        "freedom for the h seeds kept); the difference of two arms' means has the Welch t interval "
+        "(Welch–Satterthwaite degrees of freedom); a learning-curve band is the Student t interval of the "
+        "mean at each step. An interval needs 2 seeds (n/a with one).")
+    add(f"- **Measured coverage** of these {pct} intervals, i.e. how often they contain the true value, "
+        "by simulation on normal data:\n")
+    L.extend(_coverage_lines(summary["coverage"], summary["interval_methods"]))
     add(f"- **Multiple comparisons:** Holm's step-down correction, {family}.")
     add("")
 
@@ -584,22 +686,43 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         add("None.")
     add("")
 
+    teams = summary["baseline_teams"]
     add("## Table 1: results per arm\n")
-    add(f"Final evaluation of each done seed (exploration off). Mean and IQM over seeds with {pct} "
-        "stratified bootstrap intervals; *n* = seeds used (NaN values left out); *random* = mean of the "
-        "random team measured in each run.\n")
+    add(f"Final evaluation of each done seed (exploration off). Mean over seeds with its {pct} Student t "
+        f"interval, IQM with its {pct} trimmed-mean t interval; *n* = seeds used (NaN values left out)"
+        + (f"; {', '.join(f'*{_md(t)}*' for t in teams)} = mean of that non-learning team over the arm's "
+           "runs (measured in each run beside the learned team), the strongest in bold" if teams else
+           "; no run records a non-learning team") + ".\n")
     for m in METRICS:
         add(f"### {m}\n")
         add(f"{_DESCRIPTIONS[m]}.\n")
-        add(f"| arm | n | mean [{pct} CI] | IQM [{pct} CI] | std | random |")
-        add("|---|---|---|---|---|---|")
+        add(f"| arm | n | mean [{pct} CI, Student t] | IQM [{pct} CI, trimmed t] | std |"
+            + "".join(f" {_md(t)} |" for t in teams))
+        add("|---|---|---|---|---|" + "---|" * len(teams))
         for a in arms:
             s = info[a]["metrics"][m]
             label = f"`{_md(a)}`" + (" (baseline)" if a == base else "")
             n = f"{s['n']}" + (f" ({s['nan_dropped']} NaN)" if s["nan_dropped"] else "")
+            cells = "".join(f" {_team_cell(s, t)} |" for t in teams)
             add(f"| {label} | {n} | {_with_ci(s['mean'], s['mean_ci'])} | {_with_ci(s['iqm'], s['iqm_ci'])} "
-                f"| {_num(s['std'])} | {_num(s['random_mean'])} |")
+                f"| {_num(s['std'])} |{cells}")
         add("")
+
+    add("## Against the non-learning teams\n")
+    if not teams:
+        add("No run records a non-learning team (its summary.json has neither `baselines` nor `random`), so "
+            "there is nothing to compare with.\n")
+    else:
+        add(f"Every metric here is higher-is-better. An arm counts as better than the non-learning teams on "
+            f"a metric only when the lower end of its {pct} Student t interval of the mean (Table 1) is above "
+            "the mean of the strongest team for that arm and metric (bold in Table 1).\n")
+        if summary["not_better"]:
+            add("Not better than the strongest non-learning team:\n")
+            L.extend(f"- {d['sentence']}" for d in summary["not_better"])
+            add("")
+            add("Every other arm and metric with results is better than its strongest non-learning team.\n")
+        else:
+            add("Every arm with results is better than its strongest non-learning team on every metric.\n")
 
     add("## Table 2: each arm against the baseline\n")
     if not summary["comparisons"]:
@@ -610,13 +733,13 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         holm_label = "per metric" if summary["holm_family"] == "metric" else "all comparisons"
         holm_text = ("within each metric, over its arms" if summary["holm_family"] == "metric"
                      else "over every arm × metric comparison together")
-        add(f"Difference = mean(arm) − mean(baseline `{base}`) with its {pct} bootstrap interval; p = "
+        add(f"Difference = mean(arm) − mean(baseline `{base}`) with its {pct} Welch t interval; p = "
             f"{test_name}, two-sided; p (Holm) = Holm-adjusted {holm_text}; P(arm > baseline) = the "
             "probability that a random seed of the arm beats a random seed of the baseline (ties count "
             "half; 0.5 = no tendency). Every metric here is higher-is-better.\n")
         for m in METRICS:
             add(f"### {m}\n")
-            add(f"| arm | n arm / base | difference [{pct} CI] | p ({test_name}) | p (Holm, {holm_label}) "
+            add(f"| arm | n arm / base | difference [{pct} CI, Welch t] | p ({test_name}) | p (Holm, {holm_label}) "
                 "| P(arm > baseline) |")
             add("|---|---|---|---|---|---|")
             for a, per in summary["comparisons"].items():
@@ -631,9 +754,10 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         add("Figures were not drawn (`figures=False`).\n")
     elif not any(figures.values()):
         add("No figures: no arm has a done run.\n")
-    titles = {"curve": "Learning curves (mean over seeds, bootstrap band; random team dashed)",
-              "bars": "IQM per arm with bootstrap CI (baseline hatched)",
-              "axis": "Metrics against numeric override keys (mean with bootstrap CI)"}
+    titles = {"curve": f"Learning curves (mean over seeds, {pct} Student t band at each step; random team "
+                       "dashed)",
+              "bars": f"IQM per arm with its {pct} trimmed-mean t interval (baseline hatched)",
+              "axis": f"Metrics against numeric override keys (mean with its {pct} Student t interval)"}
     for kind, names in figures.items():
         if not names:
             continue
@@ -710,7 +834,7 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
                            label="random team (per arm, dashed)" if i == 0 else None)
     ax.set_xlabel("environment steps")
     ax.set_ylabel(m)
-    ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} bootstrap band",
+    ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} Student t band",
                  fontsize=10)
     ax.grid(alpha=0.3)
     _legend(ax)
@@ -755,11 +879,11 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
     else:
         ax.set_xticklabels(labels, fontsize=8)
     ax.set_ylabel(f"{m} (IQM over seeds)")
-    ax.set_title(f"{m} by arm: IQM, {summary['confidence']:.0%} stratified bootstrap CI", fontsize=10)
+    ax.set_title(f"{m} by arm: IQM, {summary['confidence']:.0%} trimmed-mean t interval", fontsize=10)
     ax.grid(axis="y", alpha=0.3)
     handles = [Patch(facecolor="white", edgecolor="black", hatch="//", lw=2.0, label=f"baseline ({base})"),
                Line2D([], [], color="black", marker="_", ls="none", markersize=10,
-                      label=f"{summary['confidence']:.0%} CI"),
+                      label=f"{summary['confidence']:.0%} CI (trimmed-mean t)"),
                Line2D([], [], color="0.2", ls="--", label="random team (mean)")]
     _legend(ax, handles=handles)
     _save(fig, path)
@@ -782,7 +906,7 @@ def _axis_figure(summary: dict[str, Any], key: str, m: str, path: Path, colours:
         ok = np.isfinite(mean)
         if not ok.any():
             continue
-        yerr = np.vstack([mean - low, high - mean])[:, ok].clip(min=0.0)
+        yerr = np.nan_to_num(np.vstack([mean - low, high - mean])[:, ok]).clip(min=0.0)  # n/a: no bar
         ax.errorbar(xs[ok], mean[ok], yerr=yerr, marker="o", capsize=4, lw=1.6, color=colours[i % len(colours)],
                     label=label)
         drawn += 1
@@ -802,7 +926,7 @@ def _axis_figure(summary: dict[str, Any], key: str, m: str, path: Path, colours:
         ax.plot(xs, [float(np.mean(by_x[v])) for v in xs], color="0.4", ls="--", lw=1.2, label="random team")
     ax.set_xlabel(key)
     ax.set_ylabel(f"{m} (mean over seeds)")
-    ax.set_title(f"{m} against {key}: mean, {summary['confidence']:.0%} bootstrap CI", fontsize=10)
+    ax.set_title(f"{m} against {key}: mean, {summary['confidence']:.0%} Student t interval", fontsize=10)
     ax.grid(alpha=0.3)
     _legend(ax)
     _save(fig, path)
@@ -844,8 +968,9 @@ def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: 
     Args:
         sweep_dir: a sweep directory (holding ledger.sqlite).
         test: ``"mannwhitney"`` (default, two-sided, no normality assumption) or ``"welch"``.
-        reps: bootstrap resamples for every interval.
-        seed: seed of every bootstrap (the same seed gives the same report).
+        reps: checked and unused: every interval is a formula (Student t, trimmed-mean t, Welch t) since
+            the per-arm percentile bootstrap was dropped for under-covering; kept so older calls work.
+        seed: checked and unused, likewise.
         holm_family: ``"metric"`` (default: Holm over the arms' comparisons of one metric) or ``"all"``.
         figures: draw the PNG figures (default); ``False`` writes report.md and runs.csv only (fast, and
             no matplotlib needed).

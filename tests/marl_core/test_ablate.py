@@ -44,8 +44,7 @@ def _tiny_base() -> dict:
     base["env"]["num_envs"] = 2
     base["env"]["params"]["max_cycles"] = 50
     base["learner"].update(learning_starts=100, batch_size=16, buffer_size=1000)
-    base["train"].update(total_steps=200, eval_every=200, checkpoint_every=200, eval_episodes=1,
-                         random_episodes=1)
+    base["train"].update(total_steps=200, eval_every=200, checkpoint_every=200, eval_episodes=1)
     base["log"]["tensorboard"] = False
     return base
 
@@ -183,26 +182,26 @@ def local_sweep(tmp_path_factory):
 def test_quick_sweep_end_to_end_local(local_sweep, capsys):
     sweep = local_sweep["dir"]
     assert local_sweep["code"] == 0, local_sweep["stdout"]  # contract: cli.py _ablate, 0 when none failed
-    assert "done 6, failed 0" in local_sweep["stdout"]  # quick.yaml: 2 arms x 3 seeds
+    assert "done 10, failed 0" in local_sweep["stdout"]  # quick.yaml: 2 arms x 5 seeds
 
     # the ledger: 6 runs done, each tried once, each with a normal run directory
     rows = _rows(sweep)
-    assert len(rows) == 6  # quick.yaml: seeds [0, 1, 2] x learner.share_parameters [false, true]
+    assert len(rows) == 10  # quick.yaml: seeds [0, 1, 2, 3, 4] x learner.share_parameters [false, true]
     assert {r["state"] for r in rows.values()} == {"done"}
     assert {r["attempts"] for r in rows.values()} == {1}  # ledger.py: mark_running counts an attempt
     for rid in rows:
         run_dir = sweep / "runs" / rid  # contract: runner.py docstring, out/runs/<run_id>/
         for name in ("summary.json", "config.yaml", "metrics.jsonl", "checkpoints/last.pt"):
             assert (run_dir / name).is_file(), (rid, name)  # contract: train.py docstring, run layout
-    _assert_ledger_matches_run_dirs(sweep, total_steps=8000)  # quick.yaml: train.total_steps 8000
+    _assert_ledger_matches_run_dirs(sweep, total_steps=5000)  # quick.yaml: train.total_steps 5000
 
     # status --json: one row per run with arm, seed, duration and the headline metric
     assert main(["status", str(sweep), "--json"]) == 0
     status = json.loads(capsys.readouterr().out)
-    assert len(status) == 6
+    assert len(status) == 10
     # contract: spec.py docstring, axes-only arms are named <short>=<value>, arm-major then by seed
     assert [(s["arm"], s["seed"]) for s in status] == [
-        (f"share_parameters={v}", seed) for v in ("false", "true") for seed in (0, 1, 2)]
+        (f"share_parameters={v}", seed) for v in ("false", "true") for seed in (0, 1, 2, 3, 4)]
     for s in status:
         assert s["state"] == "done" and s["error"] is None
         assert isinstance(s["duration"], float) and s["duration"] > 0  # ledger.py: duration, seconds
@@ -219,10 +218,10 @@ def test_quick_sweep_end_to_end_local(local_sweep, capsys):
     assert (report / "report.md").stat().st_size > 0
     with open(report / "runs.csv", newline="", encoding="utf-8") as f:
         csv_rows = list(csv.DictReader(f))
-    assert len(csv_rows) == 6
+    assert len(csv_rows) == 10
     assert {r["run_id"] for r in csv_rows} == set(rows)
     assert {r["state"] for r in csv_rows} == {"done"}
-    assert {r["env_steps"] for r in csv_rows} == {"8000"}
+    assert {r["env_steps"] for r in csv_rows} == {"5000"}
     expected = [f"curve_{m}.png" for m in FIVE_METRICS] + [f"bars_{m}.png" for m in FIVE_METRICS]
     found = sorted(p.name for p in (report / "figures").glob("*.png"))
     # report.py _axes: a bool override (share_parameters) is not numeric, so there is no axis_ figure
@@ -238,7 +237,7 @@ def test_quick_sweep_end_to_end_local(local_sweep, capsys):
     before_files, before_rows = _files(sweep / "runs"), _rows(sweep)
     assert main(["ablate", str(QUICK), "--out", str(sweep), "--workers", "2"]) == 0
     again = capsys.readouterr().out
-    assert "done 6, failed 0" in again
+    assert "done 10, failed 0" in again
     assert not any(line.startswith("runs ") for line in again.splitlines())  # cli.py: no progress, no run
     assert _rows(sweep) == before_rows  # attempts stay 1, times and metrics untouched
     assert _files(sweep / "runs") == before_files  # summary.json (and every other file) mtimes unchanged
@@ -254,11 +253,11 @@ def test_quick_sweep_on_a_local_ray_cluster(local_sweep, tmp_path, monkeypatch, 
     sweep = tmp_path / "ray_sweep"
     # contract: runner.py docstring, ray backend without --address starts a local cluster on 127.0.0.1
     assert main(["ablate", str(QUICK), "--out", str(sweep), "--backend", "ray", "--workers", "2"]) == 0
-    assert "done 6, failed 0" in capsys.readouterr().out
+    assert "done 10, failed 0" in capsys.readouterr().out
     rows = _rows(sweep)
-    assert len(rows) == 6 and {r["state"] for r in rows.values()} == {"done"}
+    assert len(rows) == 10 and {r["state"] for r in rows.values()} == {"done"}
     assert {r["worker"] for r in rows.values()} == {"ray"}  # runner.py _run_ray: mark_running(worker="ray")
-    _assert_ledger_matches_run_dirs(sweep, total_steps=8000)
+    _assert_ledger_matches_run_dirs(sweep, total_steps=5000)
     local = _rows(local_sweep["dir"])
     # contract: spec.py docstring, a run's id is the hash of its resolved config, the same in any process
     assert set(rows) == set(local)

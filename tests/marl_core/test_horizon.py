@@ -50,7 +50,7 @@ def _matrix_config(params: dict, seed: int, total_steps: int, **learner) -> dict
                     "buffer_size": 4096, "train_every": 1, "updates_per_round": 2, "target_update_every": 50,
                     "eps_start": 1.0, "eps_end": 0.1, "eps_decay_steps": 2048, **learner},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps, "eval_episodes": 2,
-                  "random_episodes": 2, "checkpoint_every": total_steps},
+                  "checkpoint_every": total_steps},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
     }
 

@@ -19,7 +19,7 @@ import yaml
 
 from marl_core.ablation import stats
 from marl_core.ablation.ledger import Ledger
-from marl_core.ablation.report import METRICS, report_summary, write_report
+from marl_core.ablation.report import FEW_SEEDS, METRICS, report_summary, write_report
 from marl_core.ablation.runner import final_metrics
 from marl_core.errors import ConfigError, RunDirError
 
@@ -63,7 +63,10 @@ def random_values(k: int) -> dict:
             "equality": 0.5, "sustainability": 120.0, "peace": 1.5 - 0.1 * k}
 
 
-def write_run(run_dir: Path, config: dict, final: dict, random: dict, steps=STEPS, summary=True) -> None:
+def write_run(run_dir: Path, config: dict, final: dict, random: dict | None, steps=STEPS, summary=True,
+              baselines: dict | None = None) -> None:
+    """A run directory; ``random=None`` leaves out the random team, ``baselines`` adds the mapping of
+    non-learning teams that newer summaries carry (an old summary has neither or only ``random``)."""
     run_dir.mkdir(parents=True)
     (run_dir / "config.yaml").write_text(yaml.safe_dump(config))
     with open(run_dir / "metrics.jsonl", "w") as f:
@@ -75,13 +78,20 @@ def write_run(run_dir: Path, config: dict, final: dict, random: dict, steps=STEP
             f.write(json.dumps(row) + "\n")
     if summary:
         data = {"env_steps": steps[-1], "episodes": steps[-1] // 50, "eval_episodes": 4, **final,
-                "random": random, "learner": "idqn", "env": "harvest_v0", "seed": config["train"]["seed"]}
+                "learner": "idqn", "env": "harvest_v0", "seed": config["train"]["seed"]}
+        if random is not None:
+            data["random"] = random
+        if baselines is not None:
+            data["baselines"] = baselines
         (run_dir / "summary.json").write_text(json.dumps(data))
 
 
 def make_sweep(root: Path, arms=ARMS, seeds=SEEDS, failed=FAILED, nan=NAN_SUSTAINABILITY,
-               pending=(), baseline=BASELINE, baseline_sets_axis=True) -> Path:
-    """A sweep directory of invented runs (demo data only), every run done unless listed otherwise."""
+               pending=(), baseline=BASELINE, baseline_sets_axis=True, baselines_of=None, with_random=True) -> Path:
+    """A sweep directory of invented runs (demo data only), every run done unless listed otherwise.
+
+    ``baselines_of(k, seed)`` gives the ``baselines`` mapping of arm k's run at a seed (None: an old summary
+    without it); ``with_random=False`` leaves the top-level ``random`` out too."""
     root.mkdir(parents=True, exist_ok=True)
     ledger = Ledger(root / "ledger.sqlite")
     spec = {"base": "harvest_idqn.yaml", "seeds": list(seeds), "set": {"train.total_steps": 500},
@@ -113,7 +123,8 @@ def make_sweep(root: Path, arms=ARMS, seeds=SEEDS, failed=FAILED, nan=NAN_SUSTAI
                 ledger.mark_failed(rid, "Traceback (most recent call last):\n  File \"x.py\", line 1\n"
                                         "ValueError: demo failure: replay exploded\n")
                 continue
-            write_run(root / "runs" / rid, config, final, random_values(k), steps=steps)
+            write_run(root / "runs" / rid, config, final, random_values(k) if with_random else None, steps=steps,
+                      baselines=baselines_of(k, seed) if baselines_of else None)
             summary = json.loads((root / "runs" / rid / "summary.json").read_text())
             ledger.mark_done(rid, final_metrics(summary))
     ledger.close()
@@ -185,7 +196,7 @@ def test_runs_csv_has_one_row_per_run(sweep):
     cols = rows[0].keys()
     for col in ("run_id", "arm", "seed", "state", "duration", "env.params.tag_cost", "train.total_steps",
                 "env_steps", "episodes", *METRICS, *(f"return/{a}" for a in AGENTS),
-                *(f"random/{m}" for m in METRICS), "error"):
+                *(f"random/{m}" for m in METRICS), *(f"baseline/random/{m}" for m in METRICS), "error"):
         assert col in cols
     assert "train.seed" not in cols  # the seed has its own column
     by_key = {(r["arm"], int(r["seed"])): r for r in rows}
@@ -199,13 +210,17 @@ def test_runs_csv_has_one_row_per_run(sweep):
     assert float(done["efficiency"]) == pytest.approx(final_values(1, 3)["efficiency"])
     assert float(done["env.params.tag_cost"]) == 0.5
     assert float(done["random/peace"]) == pytest.approx(random_values(1)["peace"])
+    # an old summary without `baselines`: its random team is the one team (report.py docstring)
+    assert float(done["baseline/random/peace"]) == pytest.approx(random_values(1)["peace"])
 
 
 def test_report_md_says_what_was_done(sweep, summary):
     text = (sweep[1] / "report.md").read_text()
     for phrase in ("Mann–Whitney U", "two-sided", "no normal", "Holm", "one family per metric",
                    "Seeds per arm (done/total)", f"`{ARMS[2]}` 4/5", f"`{ARMS[0]}` 5/5", "## Warnings",
-                   f"{REPS} resamples", "Agarwal et al. 2021", "one stratum per arm",
+                   "Agarwal et al. 2021", "## Notes on method", "Student t", "Welch t", "trimmed-mean t",
+                   "Tukey and McLaughlin", "Measured coverage", "per-arm percentile bootstrap",
+                   "whose IQM equals its mean because the normal distribution is symmetric",
                    "fewer than 5", "sustainability: 1 of 5 done run(s)", "1 of 15 runs are not done (1 failed)",
                    "ValueError: demo failure: replay exploded", "Table 1", "Table 2", "P(arm > baseline)",
                    "random", "not people", "real-world policy"):
@@ -216,6 +231,24 @@ def test_report_md_says_what_was_done(sweep, summary):
         assert (sweep[1] / link).is_file()
     for w in summary["warnings"]:  # every warning of the summary is in the warning block
         assert w in text
+    assert "stratified" not in text.lower()  # one arm is one sample: its bootstrap is not a stratified one
+    assert "bootstrap band" not in text and "bootstrap interval" not in text
+
+
+def test_report_md_prints_the_measured_coverage(sweep):
+    text = (sweep[1] / "report.md").read_text()
+    labels = {"mean": "mean of an arm (Table 1)", "iqm": "IQM of an arm (Table 1, bar figures)",
+              "difference": "difference of means (Table 2)", "curve": "learning-curve band"}
+    row = {kind: next(line for line in text.splitlines() if line.strip().startswith(f"| {label} |"))
+           for kind, label in labels.items()}
+    for kind, line in row.items():
+        assert stats.INTERVAL_METHODS[kind] in line  # documented names: Student t, trimmed-mean t, Welch t
+        for n in (3, 5, 10):
+            # the constants, re-measured by simulation in test_stats
+            assert f"{stats.MEASURED_COVERAGE[kind][n]:.1%}" in line, (kind, n)
+    assert "| interval | method | 3 seeds | 5 seeds | 10 seeds |" in text
+    boot = stats.MEASURED_COVERAGE["iqm_percentile_bootstrap"]
+    assert f"{boot[3]:.1%} at 3 seeds" in text  # why the bootstrap is not used, with its measured coverage
 
 
 # ------------------------------------------------------------------------------------------ the numbers
@@ -305,9 +338,14 @@ def test_one_arm_sweep_has_no_comparison_table(tmp_path):
     s = report_summary(root, reps=REPS)
     assert s["comparisons"] == {}
     eff = s["arms"][ARMS[0]]["metrics"]["efficiency"]
-    assert eff["n"] == 1 and eff["mean_ci"] == (eff["mean"], eff["mean"])  # one seed: the CI collapses
+    assert eff["n"] == 1 and all(math.isnan(v) for v in eff["mean_ci"])  # stats docs: no interval from 1 seed
+    assert all(math.isnan(v) for v in eff["iqm_ci"])  # stats docs: no interval from 1 seed
     assert "1 of 2 runs are not done (1 pending)" in text
-    assert "has 1 done seed" in text
+    assert "has 1 done seed" in text and "no interval can be computed" in text
+    # one seed cannot be shown better than the random team (report.py docstring: the lower end must be above it)
+    assert {(d["metric"], d["reason"]) for d in s["not_better"]} == {(m, "no_interval") for m in METRICS}
+    assert (f"- `{ARMS[0]}`: efficiency 2 (1 seed, no interval) cannot be shown better than the `random` team's "
+            "0.3 (an interval needs at least 2 seeds)") in text  # invented data: efficiency 2 + 0 + 0.1 * 0
     assert sorted(p.name for p in (out / "figures").glob("bars_*.png")) == sorted(f"bars_{m}.png" for m in METRICS)
 
 
@@ -340,3 +378,117 @@ def test_report_never_imports_torch(sweep):
     # the import and after write_report; here: it did finish and wrote its report
     root, out = sweep
     assert out == root / "report" and (out / "report.md").is_file()
+
+
+# ------------------------------------------------------------------------------ non-learning teams
+def team_values(k: int, seed: int) -> dict:
+    """Invented ``baselines`` of arm k's run at a seed (demo data only): ``greedy`` forages well (strong on
+    efficiency, with a wobble that averages out over seeds 0..4), ``noop`` never moves (all returns 0, so it is
+    perfectly equal and never tags: peace = 3 agents), ``random`` as in the older summaries."""
+    wobble = 0.01 * (seed - 2)  # sums to 0 over seeds 0..4 (hand-computed)
+    rand = random_values(k)
+    return {
+        "random": {"eval_episodes": 4, "episode_length": 100.0, **rand},
+        "noop": {"eval_episodes": 4, "returns": dict.fromkeys(AGENTS, 0.0), "return_mean": 0.0,
+                 "episode_length": 100.0, "efficiency": 0.0, "equality": 1.0, "sustainability": None,
+                 "peace": 3.0},
+        "greedy": {"eval_episodes": 4, "returns": dict.fromkeys(AGENTS, 5.0), "return_mean": 5.0,
+                   "episode_length": 100.0, "efficiency": 3.3 + wobble, "equality": 0.4, "sustainability": 150.0,
+                   "peace": 1.0},
+    }
+
+
+@pytest.fixture(scope="module")
+def team_sweep(tmp_path_factory):
+    """Three arms of 5 seeds each, every run done, every summary with ``baselines``."""
+    root = make_sweep(tmp_path_factory.mktemp("teams") / "sweep", failed=None, nan=None, baselines_of=team_values)
+    out = write_report(root, reps=REPS, figures=False)
+    return report_summary(root, reps=REPS), (out / "report.md").read_text(), out
+
+
+def test_team_means_and_the_strongest_team(team_sweep):
+    s, text, _ = team_sweep
+    assert s["baseline_teams"] == ["random", "noop", "greedy"]  # order of first appearance in summary.json
+    eff = s["arms"][ARMS[0]]["metrics"]["efficiency"]
+    # invented data (team_values), the greedy wobble averages out over seeds 0..4
+    assert eff["teams"] == pytest.approx({"random": 0.3, "noop": 0.0, "greedy": 3.3})
+    assert eff["best_team"] == "greedy" and eff["best_team_mean"] == pytest.approx(3.3)
+    sus = s["arms"][ARMS[1]]["metrics"]["sustainability"]
+    assert set(sus["teams"]) == {"random", "greedy"}  # noop's sustainability is null (NaN): left out
+    assert sus["best_team"] == "greedy"  # 150 > random's 120 (invented data)
+    assert "| arm | n | mean [95% CI, Student t] | IQM [95% CI, trimmed t] | std | random | noop | greedy |" in text
+    row = next(line for line in text.split("### efficiency")[1].splitlines() if line.startswith(f"| `{ARMS[0]}`"))
+    assert row.endswith("| 0.3 | 0 | **3.3** |")  # the strongest team in bold
+
+
+def test_arms_not_better_than_the_strongest_team_are_named(team_sweep):
+    s, text, _ = team_sweep
+    # invented data: efficiency 2 + k + 0.1 seed -> means 2.2, 3.2, 4.2 with Student t half-width
+    # t_{0.975, 4} * 0.1 * sd(0..4) / sqrt(5) = 2.776 * 0.1581 / 2.236 = 0.196 (scipy.stats.t.ppf, hand-computed);
+    # greedy 3.3 lies above arm 0's interval, inside arm 1's and below arm 2's. equality (0.72, 0.77, 0.815 +- 0.02)
+    # and peace (2.1, 2.3, 2.5 +- 0.1) lie wholly below noop's 1.0 and 3.0.
+    expected = {(ARMS[0], "efficiency", "greedy", "below"), (ARMS[1], "efficiency", "greedy", "reaches_below")}
+    expected |= {(a, "equality", "noop", "below") for a in ARMS} | {(a, "peace", "noop", "below") for a in ARMS}
+    assert {(d["arm"], d["metric"], d["team"], d["reason"]) for d in s["not_better"]} == expected
+    for k, arm in enumerate(ARMS):
+        runs = [final_values(k, seed)["efficiency"] for seed in SEEDS]  # every run done in this sweep
+        low, high = stats.t_interval(runs, 0.95)  # the interval Table 1 shows (held against scipy in test_stats)
+        assert s["arms"][arm]["metrics"]["efficiency"]["mean_ci"] == pytest.approx((low, high))
+    assert ("- `tag_cost=0.0`: efficiency 2.2 [2.004, 2.396] is not better than the `greedy` team's 3.3 "
+            "(the whole interval lies below it)") in text  # numbers: the comment above, 4 significant digits
+    assert ("- `tag_cost=0.5`: efficiency 3.2 [3.004, 3.396] is not better than the `greedy` team's 3.3 "
+            "(interval reaches below it)") in text
+    assert "## Against the non-learning teams" in text and "Every other arm and metric" in text
+
+
+def test_arm_better_than_every_team_gets_no_sentence(team_sweep):
+    s, text, _ = team_sweep
+    eff = s["arms"][ARMS[2]]["metrics"]["efficiency"]
+    assert eff["beats_best_team"] is True and eff["mean_ci"][0] > 3.3  # 4.2 - 0.196 > 3.3 (hand-computed above)
+    assert f"`{ARMS[2]}`: efficiency" not in text
+    for arm in ARMS:  # return_mean (22, 42, 62) and sustainability (202, 212, 222) beat greedy's 5 and 150
+        for m in ("return_mean", "sustainability"):
+            assert s["arms"][arm]["metrics"][m]["beats_best_team"] is True, (arm, m)
+
+
+def test_runs_csv_has_a_column_per_team_and_metric(team_sweep):
+    with open(team_sweep[2] / "runs.csv", newline="") as f:
+        rows = {r["run_id"]: r for r in csv.DictReader(f)}
+    cols = next(iter(rows.values())).keys()
+    for team in ("random", "noop", "greedy"):
+        for m in METRICS:
+            assert f"baseline/{team}/{m}" in cols
+    assert float(rows["run0s3"]["baseline/greedy/efficiency"]) == pytest.approx(3.31)  # 3.3 + 0.01 (seed 3)
+    assert rows["run1s0"]["baseline/noop/sustainability"] == ""  # JSON null: NaN, written empty
+    assert float(rows["run2s4"]["baseline/noop/peace"]) == 3.0  # invented data
+
+
+def test_old_summaries_without_baselines_fall_back_to_random(summary, sweep):
+    # the module fixture's summaries are old ones: `random` only, no `baselines`
+    text = (sweep[1] / "report.md").read_text()
+    assert summary["baseline_teams"] == ["random"]
+    for k, arm in enumerate(ARMS):
+        peace = summary["arms"][arm]["metrics"]["peace"]
+        assert peace["teams"] == pytest.approx({"random": random_values(k)["peace"]})  # invented: 1.5 - 0.1 k
+        assert peace["best_team"] == "random" and peace["beats_best_team"] is True
+    assert summary["not_better"] == []
+    assert "Every arm with results is better than its strongest non-learning team on every metric." in text
+
+
+def test_no_team_at_all(tmp_path):
+    root = make_sweep(tmp_path / "sweep", with_random=False)
+    s = report_summary(root, reps=REPS)
+    assert s["baseline_teams"] == [] and s["not_better"] == []
+    assert s["arms"][ARMS[0]]["metrics"]["efficiency"]["beats_best_team"] is None  # documented: no team
+    text = (write_report(root, reps=REPS, figures=False) / "report.md").read_text()
+    assert "No run records a non-learning team" in text
+
+
+def test_every_bundled_spec_has_enough_seeds_for_the_report():
+    # report.FEW_SEEDS (5, common practice (no source)): below it the report warns that intervals are rough;
+    # the bundled specs are examples to copy, so none of them starts below it.
+    specs = sorted((Path(__file__).resolve().parents[2] / "configs" / "ablations").glob("*.yaml"))
+    assert specs
+    for path in specs:
+        seeds = yaml.safe_load(path.read_text(encoding="utf-8"))["seeds"]
+        assert len(seeds) >= FEW_SEEDS, (path.name, seeds)

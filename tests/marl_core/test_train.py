@@ -44,7 +44,7 @@ def _tiny(kind: str = "idqn", seed: int = 0) -> dict:
         "learner": {"kind": kind, "hidden": 16, "conv_channels": [4, 8], "batch_size": 16,
                     "learning_starts": 100, "buffer_size": 2000, "train_every": 2},
         "train": {"total_steps": 400, "seed": seed, "eval_every": 200, "eval_episodes": 2,
-                  "random_episodes": 2, "checkpoint_every": 200},
+                  "checkpoint_every": 200},
         "log": {"tensorboard": False, "gif_every": 0},
     }
 
