@@ -15,11 +15,33 @@ resource   a resource stands
 waste      waste lies on the river (cleanup)
 river      a river cell (cleanup)
 orchard    a cell where resources can grow (harvest patches, cleanup orchard)
-agents     another agent on the map (``state()``: every agent on the map)
-self       the observer's own cell (``state()``: all zero)
-ahead      the cell the observer faces, where its beams start (``state()``: the cell ahead of every agent)
-frozen     the whole window while the observer is frozen (``state()``: the cell each frozen agent left)
+agents     another agent on the map (shared state: every agent on the map)
+self       the observer's own cell (shared state: all zero)
+ahead      the cell the observer faces, where its beams start (shared state: the cell ahead of every agent)
+frozen     the whole window while the observer is frozen (shared state: the cell each frozen agent left)
 =========  ============================================================================================
+
+State channels (``state_channels(num_agents, layout)``; ``state()`` is ``(C, H, W)`` uint8 0/1 over the map,
+no padding, and ``state_space`` is ``Box(0, 1, (C, H, W), uint8)``). The game parameter ``state_layout``
+chooses between two layouts:
+
+* ``"per_agent"`` (the default), ``C = 5 + 3N``: the five map channels that do not depend on agents (``wall``,
+  ``resource``, ``waste``, ``river``, ``orchard``, as above; the map has no outside here), then three planes
+  per agent, in agent order, so a centralised critic can tell agent i from agent j:
+
+  ======================  ==============================================================================
+  channel                 set where
+  ======================  ==============================================================================
+  ``agent_<i>.position``  agent i's cell; all zero while agent i is frozen (off the map)
+  ``agent_<i>.ahead``     the cell agent i faces (where its beams start); zero while it is frozen, and
+                          zero when that cell is outside the map
+  ``agent_<i>.frozen``    while agent i is frozen, the cell it left when it was tagged; zero otherwise
+  ======================  ==============================================================================
+
+  Channel ``5 + 3 i + k`` is plane ``k`` (position, ahead, frozen) of agent ``i``.
+* ``"shared"``, ``C = 9``: the observation channels over the whole map, with one anonymous ``agents``
+  channel and one shared ``ahead`` / ``frozen`` channel (the "shared state" variants in the table
+  above); agents cannot be told apart in it.
 
 Step order, for every copy at once:
 
@@ -62,10 +84,14 @@ from envs.errors import ParamError
 from envs.layouts import Layout, layout_problem, load_layout
 from envs.params import Param, resolve
 
-__all__ = ["CHANNELS", "MOVE_ACTIONS", "GridGame", "grid_params"]
+__all__ = ["CHANNELS", "MAP_CHANNELS", "AGENT_STATE_PLANES", "STATE_LAYOUTS", "MOVE_ACTIONS", "GridGame",
+           "grid_params", "state_channels"]
 
 CHANNELS: tuple[str, ...] = ("wall", "resource", "waste", "river", "orchard", "agents", "self", "ahead",
                              "frozen")
+MAP_CHANNELS: tuple[str, ...] = CHANNELS[:5]  # the channels that do not depend on agents
+AGENT_STATE_PLANES: tuple[str, ...] = ("position", "ahead", "frozen")  # per agent, in the per_agent state
+STATE_LAYOUTS: tuple[str, ...] = ("per_agent", "shared")
 MOVE_ACTIONS: tuple[str, ...] = ("stay", "up", "down", "left", "right")
 
 # bit layout of the packed map: one uint8 per cell, one bit per map channel
@@ -103,6 +129,18 @@ def _unit(z: np.ndarray) -> np.ndarray:
     return (z >> np.uint64(11)).astype(np.float64) * (1.0 / (1 << 53))
 
 
+def state_channels(num_agents: int, layout: str = "per_agent") -> tuple[str, ...]:
+    """Names of the ``state()`` channels, in order, for ``num_agents`` agents and a ``state_layout``
+    (module docstring): ``("wall", ..., "orchard", "agent_0.position", "agent_0.ahead", "agent_0.frozen",
+    "agent_1.position", ...)`` for ``"per_agent"``, ``CHANNELS`` for ``"shared"``."""
+    if layout == "shared":
+        return CHANNELS
+    if layout != "per_agent":
+        raise ParamError(f"state_channels: parameter 'state_layout' = {layout!r} is not allowed; expected one "
+                         f"of {', '.join(repr(v) for v in STATE_LAYOUTS)}")
+    return MAP_CHANNELS + tuple(f"agent_{i}.{k}" for i in range(num_agents) for k in AGENT_STATE_PLANES)
+
+
 def _odd(v: int) -> str | None:
     return None if v % 2 == 1 else "an odd integer (lanes centred on the agent's line)"
 
@@ -123,6 +161,9 @@ def grid_params(layout: str, extra: list[Param]) -> list[Param]:
         Param("tag_cost", float, 0.0, "reward paid by the tagger per tag beam fired", low=0.0),
         Param("tagged_penalty", float, 0.0, "reward lost by an agent when it is tagged", low=0.0),
         Param("freeze_steps", int, 25, "steps a tagged agent sits out, off the map", low=0),
+        Param("state_layout", str, "per_agent", "what state() returns: 'per_agent' (the map, then position, "
+              "ahead and frozen planes for each agent) or 'shared' (the observation channels, agents anonymous)",
+              choices=STATE_LAYOUTS),
         *extra,
     ]
 
@@ -135,7 +176,8 @@ class GridGame(BatchedGame):
         obs: (B, N, C, 2r+1, 2r+1) uint8 (``full_view``: (B, N, C, H, W)), C = len(CHANNELS)
         rewards: (B, N) float32;  terminated, truncated: (B, N) bool
         infos: dict of (B, N) int64 event counts of the step (``info_keys``)
-        state(): (B, C, H, W) uint8
+        state(): (B, S, H, W) uint8, S = len(self.state_channels): 5 + 3N (``state_layout="per_agent"``) or
+            len(CHANNELS) (``"shared"``)
     """
 
     PARAMS: ClassVar[list[Param]] = []
@@ -179,7 +221,8 @@ class GridGame(BatchedGame):
         self.k = (H, W) if p["full_view"] else (2 * r + 1, 2 * r + 1)
         C = len(CHANNELS)
         self.observation_space = spaces.Box(0, 1, (C, *self.k), np.uint8)
-        self.state_space = spaces.Box(0, 1, (C, H, W), np.uint8)
+        self.state_channels = state_channels(N, p["state_layout"])
+        self.state_space = spaces.Box(0, 1, (len(self.state_channels), H, W), np.uint8)
 
         def pad(a: np.ndarray, fill: bool = False) -> np.ndarray:
             return np.pad(a, P, constant_values=fill)
@@ -473,7 +516,30 @@ class GridGame(BatchedGame):
         return obs
 
     def state(self) -> np.ndarray:
-        """(B, C, H, W) uint8: the whole map in the observation channels (see the module docstring)."""
+        """(B, S, H, W) uint8: the whole map in ``self.state_channels`` (``state_layout``, module docstring)."""
+        if self.params["state_layout"] == "shared":
+            return self._shared_state()
+        P, H, W = self.P, self.H, self.W
+        B, N = self.cell.shape
+        M = len(MAP_CHANNELS)
+        out = np.zeros((B, M + 3 * N, H, W), np.uint8)
+        bits = self._pack()[:, P:P + H, P:P + W]
+        for c in range(M):  # one channel at a time, as in _observe
+            np.bitwise_and(bits >> _SHIFTS[c, 0, 0], np.uint8(1), out=out[:, c])
+        y, x = np.divmod(self.cell, self.Wp)
+        y, x = y - P, x - P
+        ab, an = np.nonzero(~self.out)
+        out[ab, M + 3 * an, y[ab, an], x[ab, an]] = 1
+        f = self.facing[ab, an]
+        ay, ax = y[ab, an] + _DIRS[f, 0], x[ab, an] + _DIRS[f, 1]
+        inside = (ay >= 0) & (ay < H) & (ax >= 0) & (ax < W)
+        out[ab[inside], M + 3 * an[inside] + 1, ay[inside], ax[inside]] = 1
+        fb, fn = np.nonzero(self.out)
+        out[fb, M + 3 * fn + 2, y[fb, fn], x[fb, fn]] = 1
+        return out
+
+    def _shared_state(self) -> np.ndarray:
+        """(B, C, H, W) uint8: the whole map in the observation channels (``state_layout="shared"``)."""
         P, H, W = self.P, self.H, self.W
         out = (self._pack()[:, None, P:P + H, P:P + W] >> _SHIFTS) & np.uint8(1)
         y, x = np.divmod(self.cell, self.Wp)

@@ -24,6 +24,8 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       learning_starts: 2000
       train_every: 1
       updates_per_round: 1
+      lr_end: null
+      lr_decay_steps: 100000
       grad_clip: 10.0
       hidden: 128
       conv_channels: [16, 32]
@@ -293,8 +295,15 @@ class _LearnerBase(BaseModel):
     learning_starts: _Int = Field(2000, ge=0, description="env steps collected before the first update")
     train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds")
     updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round")
-    grad_clip: float | None = Field(10.0, gt=0.0, description="largest global gradient norm per update "
-                                    "(null: no clipping)")
+    lr_end: float | None = Field(None, gt=0.0, description="learning rate reached at the end of a linear "
+                                 "decay over lr_decay_steps env steps; every optimiser's rate is scaled by "
+                                 "the same factor (null: constant learning rates)")
+    lr_decay_steps: _PositiveInt = Field(100_000, description="env steps of the linear learning-rate decay "
+                                         "(used only with lr_end)")
+    grad_clip: float | None = Field(10.0, gt=0.0, description="largest gradient norm per update of each "
+                                    "agent's network (of the shared network under parameter sharing) and of "
+                                    "each critic network; clipped one network at a time, so independent "
+                                    "learners stay independent (null: no clipping)")
     hidden: _PositiveInt = Field(128, description="width of the MLP layers")
     conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
                                              description="output channels of each conv layer of the "
@@ -352,9 +361,15 @@ class MADDPGConfig(_LearnerBase):
     critic: Literal["shared", "per_agent"] = Field("shared", description="one critic for the team "
                                                    "(shared) or one per agent")
     critic_input: Literal["auto", "state", "observations"] = Field("auto", description="what the critic "
-                                                                   "sees besides the actions; auto = "
-                                                                   "every agent's observation (Lowe et "
-                                                                   "al. 2017), state = the env's state()")
+                                                                   "sees besides the actions: observations "
+                                                                   "= every agent's observation stacked "
+                                                                   "(Lowe et al. 2017); state = the env's "
+                                                                   "state() (our grid games: a plane per "
+                                                                   "agent, env.params.state_layout); auto "
+                                                                   "= observations, measured: tied on "
+                                                                   "harvest, far ahead on cleanup at 100k "
+                                                                   "steps, and faster "
+                                                                   "(scripts/compare_critic_inputs.py)")
     actor_lr: float = Field(1e-3, gt=0.0, description="Adam learning rate of the actors")
     tau: float = Field(0.01, gt=0.0, le=1.0, description="Polyak step of the target networks per update")
     gumbel_temperature: float = Field(1.0, gt=0.0, description="temperature of the straight-through "

@@ -19,7 +19,7 @@ import torch
 from marl_core.nets import AgentNets
 from marl_core.policy import AgentPolicy
 from marl_core.spec import TeamSpec
-from marl_core.targets import dqn_target, huber, linear_schedule, td_priorities
+from marl_core.targets import dqn_target, huber, linear_schedule, set_lr_scale, td_priorities
 
 __all__ = ["IDQN"]
 
@@ -46,6 +46,12 @@ class IDQN:
         self.rng = np.random.default_rng(seed)
         self.updates = 0
         self.priorities: np.ndarray | None = None  # |TD| per transition of the last update
+
+    def schedule(self, env_steps: int) -> None:
+        """Move the learning rate along its schedule (``lr`` -> ``lr_end`` over ``lr_decay_steps``)."""
+        c = self.cfg
+        if c.lr_end is not None:
+            set_lr_scale(self.opt, c.lr, linear_schedule(env_steps, 1.0, c.lr_end / c.lr, c.lr_decay_steps))
 
     # ------------------------------------------------------------------ acting
     def epsilon(self, env_steps: int) -> float:

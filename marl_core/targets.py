@@ -9,7 +9,7 @@ import torch
 from torch import nn
 
 __all__ = ["dqn_target", "dueling_combine", "huber", "linear_schedule", "gumbel_softmax_st", "polyak_update",
-           "one_hot", "td_priorities"]
+           "one_hot", "td_priorities", "set_lr_scale"]
 
 
 def dqn_target(returns: torch.Tensor, discounts: torch.Tensor, next_q_target: torch.Tensor,
@@ -45,6 +45,12 @@ def linear_schedule(step: int, start: float, end: float, steps: int) -> float:
     """``start`` moving linearly to ``end`` over ``steps``, then ``end``."""
     frac = min(max(step, 0) / max(steps, 1), 1.0)
     return start + frac * (end - start)
+
+
+def set_lr_scale(optimizer: torch.optim.Optimizer, base_lr: float, scale: float) -> None:
+    """Set every parameter group of ``optimizer`` to ``base_lr * scale`` (a learning-rate schedule step)."""
+    for group in optimizer.param_groups:
+        group["lr"] = base_lr * scale
 
 
 def gumbel_softmax_st(logits: torch.Tensor, temperature: float = 1.0,

@@ -34,7 +34,7 @@ from marl_core.ablation.ledger import Ledger
 from marl_core.ablation.spec import Sweep, load_spec
 from marl_core.errors import MissingExtraError, RunDirError
 
-__all__ = ["ablate", "run_one", "sweep_status", "BACKENDS", "HEADLINE"]
+__all__ = ["ablate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE"]
 
 BACKENDS = ("local", "ray")
 HEADLINE = "efficiency"  # the metric shown in status tables
@@ -159,6 +159,33 @@ def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backen
         return ledger.counts()
     finally:
         ledger.close()
+
+
+def repeat(config: str | Path, seeds: list[int], out: str | Path, overrides: dict[str, Any] | None = None,
+           workers: int | None = None) -> list[dict[str, Any]]:
+    """Train the config file ``config`` once per seed (a one-arm sweep in ``out``, ``workers`` at a time) and
+    return each run's ``summary.json`` in the order of ``seeds``; ``overrides`` (dotted key -> value) apply
+    to every run. A failed run raises :class:`marl_core.errors.RunDirError` with its last error line."""
+    import yaml
+
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    spec = {"base": str(Path(config).resolve()), "seeds": list(seeds), "set": dict(overrides or {})}
+    (out / "spec.yaml").write_text(yaml.safe_dump(spec, sort_keys=False))
+    ablate(out / "spec.yaml", out / "sweep", workers=workers)
+    ledger = Ledger(out / "sweep" / "ledger.sqlite")
+    try:
+        rows = {r["seed"]: r for r in ledger.rows()}
+    finally:
+        ledger.close()
+    summaries = []
+    for seed in seeds:
+        row = rows[seed]
+        if row["state"] != "done":
+            last = (row.get("error") or "").strip().splitlines()[-1:] or ["no error recorded"]
+            raise RunDirError(f"run with seed {seed} of {config} {row['state']}: {last[0]}")
+        summaries.append(json.loads((out / "sweep" / "runs" / row["run_id"] / "summary.json").read_text()))
+    return summaries
 
 
 def _eta(ledger: Ledger, workers: int) -> float | None:

@@ -313,3 +313,22 @@ def test_grid_rejects_unknown_horizon_on_one_line():
     # envs/errors.py: the message names the parameter, the value and what is allowed, on one line
     assert str(err.value) == ("cleanup_v0: parameter 'horizon' = 'episodic' is not allowed; expected one of "
                               "'terminal', 'time_limit'")
+
+
+@pytest.mark.parametrize("state_layout", ["per_agent", "shared"])
+@pytest.mark.parametrize("game", ["harvest_v0", "cleanup_v0"])
+def test_grid_project_checks_pass_for_both_state_layouts(game, state_layout):
+    from envs.checks import check_game
+
+    # envs/checks.py: state() inside state_space, determinism, batched copy b == single env with seed + b
+    layout = {"harvest_v0": "harvest_tiny", "cleanup_v0": "cleanup_tiny"}[game]
+    check_game(game, {"layout": layout, "num_agents": 3, "view_radius": 2, "freeze_steps": 3,
+                      "state_layout": state_layout}, cycles=60)
+
+
+def test_grid_rejects_unknown_state_layout_on_one_line():
+    with pytest.raises(ParamError) as err:
+        harvest.vector_env(1, state_layout="per-agent")
+    # envs/errors.py: the message names the parameter, the value and what is allowed, on one line
+    assert str(err.value) == ("harvest_v0: parameter 'state_layout' = 'per-agent' is not allowed; expected one "
+                              "of 'per_agent', 'shared'")

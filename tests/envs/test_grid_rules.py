@@ -17,7 +17,7 @@ from scipy.stats import binomtest
 import envs.cleanup_v0 as cleanup
 import envs.harvest_v0 as harvest
 from envs.errors import ActionError, LayoutError
-from envs.grid import CHANNELS
+from envs.grid import CHANNELS, state_channels
 
 CH = {c: i for i, c in enumerate(CHANNELS)}
 
@@ -403,7 +403,7 @@ def test_tag_hits_the_position_after_moves(tmp_path):
 
 def test_tagged_agent_leaves_the_map(tmp_path):
     env = harvest.parallel_env(layout=write_layout(tmp_path, CORRIDOR), num_agents=2, view_radius=3,
-                               freeze_steps=5)
+                               freeze_steps=5, state_layout="shared")
     env.reset(seed=0)
     game = env.game
     place(game, 0, 2, 1, facing="right")
@@ -414,7 +414,8 @@ def test_tagged_agent_leaves_the_map(tmp_path):
     assert game.out[0, 1]
     # rule stated in envs/grid.py docstring (step 4): a tagged agent leaves the map, so others do not see it
     assert obs["agent_0"][CH["agents"]].sum() == 0
-    assert env.state()[CH["agents"]].sum() == 1  # state(): every agent on the map -- only agent_0 now
+    # shared state(): every agent on the map -- only agent_0 now
+    assert env.state()[CH["agents"]].sum() == 1
     # CHANNELS table: 'frozen' is the whole window while the observer is frozen
     assert np.all(obs["agent_1"][CH["frozen"]] == 1)
     assert obs["agent_1"][CH["self"]].sum() == 0
@@ -673,7 +674,76 @@ def test_harvest_rejects_a_layout_with_a_river():
         harvest.vector_env(1, layout="cleanup_tiny", num_agents=1)
 
 
-def test_state_channels(tmp_path):
+def test_shared_state_channels(tmp_path):
+    env = harvest.parallel_env(layout=write_layout(tmp_path, ROOM), num_agents=3, view_radius=2,
+                               regrow_table=[0.0], state_layout="shared")
+    env.reset(seed=0)
+    game = env.game
+    place(game, 0, 3, 1, facing="right")
+    place(game, 1, 1, 4, facing="down")
+    place(game, 2, 3, 3)
+    env.step({"agent_0": TAG, "agent_1": STAY, "agent_2": STAY})  # agent_2 is tagged and leaves (3, 3)
+    st = env.state()
+    layout = game.layout
+    # harvest_v0 docstring: (9, H, W) uint8 with state_layout="shared"
+    assert st.shape == (9, 7, 9) and st.dtype == np.uint8
+    # envs/grid.py docstring (CHANNELS table, "shared state" variants)
+    assert np.array_equal(st[CH["wall"]], layout.wall)
+    assert np.array_equal(st[CH["resource"]], layout.resource)
+    assert np.array_equal(st[CH["orchard"]], layout.orchard)
+    assert st[CH["waste"]].sum() == 0 and st[CH["river"]].sum() == 0
+    assert sorted(map(tuple, np.argwhere(st[CH["agents"]]).tolist())) == [(1, 4), (3, 1)]  # on the map
+    assert st[CH["self"]].sum() == 0  # state(): all zero
+    assert sorted(map(tuple, np.argwhere(st[CH["ahead"]]).tolist())) == [(2, 4), (3, 2)]
+    assert np.argwhere(st[CH["frozen"]]).tolist() == [[3, 3]]  # the cell the frozen agent left
+
+
+# per-agent state (envs/grid.py docstring, "State channels"): the five map channels, then for agent i the planes
+# position, ahead, frozen at channels 5 + 3 i + (0, 1, 2)
+MAP = 5
+PLANE = {"position": 0, "ahead": 1, "frozen": 2}
+
+
+def agent_plane(st: np.ndarray, agent: int, plane: str) -> np.ndarray:
+    return st[MAP + 3 * agent + PLANE[plane]]
+
+
+def cells_of(plane: np.ndarray) -> list[tuple[int, int]]:
+    return sorted(map(tuple, np.argwhere(plane).tolist()))
+
+
+def legend_layer(text: str, chars: str) -> np.ndarray:
+    """(H, W) uint8 of the cells of a layout text written with one of ``chars`` (legend in envs/layouts.py)."""
+    rows = textwrap.dedent(text).strip("\n").splitlines()
+    return np.array([[c in chars for c in row] for row in rows], np.uint8)
+
+
+def test_state_channel_names():
+    # envs/grid.py docstring ("State channels"): map channels, then position/ahead/frozen per agent, in order;
+    # the names written out by hand here
+    assert state_channels(2) == ("wall", "resource", "waste", "river", "orchard",
+                                 "agent_0.position", "agent_0.ahead", "agent_0.frozen",
+                                 "agent_1.position", "agent_1.ahead", "agent_1.frozen")
+    assert state_channels(3, "shared") == CHANNELS  # shared: the observation channels
+
+
+@pytest.mark.parametrize("num_agents", [1, 2, 4])
+@pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
+def test_per_agent_state_space_is_exact(module, num_agents):
+    layout = {harvest: "harvest_tiny", cleanup: "cleanup_tiny"}[module]
+    par = module.parallel_env(layout=layout, num_agents=num_agents, view_radius=2)
+    par.reset(seed=0)
+    H, W = par.game.layout.shape
+    # envs/grid.py docstring: (5 + 3N, H, W) uint8 0/1, built once; the facade's state() is the engine's
+    assert par.state_space.shape == (5 + 3 * num_agents, H, W) and par.state_space.dtype == np.uint8
+    assert par.state_space == par.game.state_space
+    assert len(par.game.state_channels) == par.state_space.shape[0]
+    st = par.state()
+    assert st.shape == par.state_space.shape and st.dtype == np.uint8 and par.state_space.contains(st)
+    assert np.array_equal(st, par.game.state()[0])
+
+
+def test_per_agent_state_cell_by_cell(tmp_path):
     env = harvest.parallel_env(layout=write_layout(tmp_path, ROOM), num_agents=3, view_radius=2,
                                regrow_table=[0.0])
     env.reset(seed=0)
@@ -683,17 +753,119 @@ def test_state_channels(tmp_path):
     place(game, 2, 3, 3)
     env.step({"agent_0": TAG, "agent_1": STAY, "agent_2": STAY})  # agent_2 is tagged and leaves (3, 3)
     st = env.state()
-    layout = game.layout
-    assert st.shape == (9, 7, 9) and st.dtype == np.uint8  # harvest_v0 docstring: (9, H, W) uint8
-    # envs/grid.py docstring (CHANNELS table, state() variants)
-    assert np.array_equal(st[CH["wall"]], layout.wall)
-    assert np.array_equal(st[CH["resource"]], layout.resource)
-    assert np.array_equal(st[CH["orchard"]], layout.orchard)
-    assert st[CH["waste"]].sum() == 0 and st[CH["river"]].sum() == 0
-    assert sorted(map(tuple, np.argwhere(st[CH["agents"]]).tolist())) == [(1, 4), (3, 1)]  # on the map
-    assert st[CH["self"]].sum() == 0  # state(): all zero
-    assert sorted(map(tuple, np.argwhere(st[CH["ahead"]]).tolist())) == [(2, 4), (3, 2)]
-    assert np.argwhere(st[CH["frozen"]]).tolist() == [[3, 3]]  # the cell the frozen agent left
+    assert game.out[0].tolist() == [False, False, True]
+    # the whole expected state, derived by hand in this test from the ROOM text and the placements above
+    want = np.zeros((5 + 3 * 3, 7, 9), np.uint8)
+    want[0] = legend_layer(ROOM, "#")                      # wall
+    want[1] = legend_layer(ROOM, "+")                      # resource: the '+' cell, (2, 3); none regrows
+    want[4] = legend_layer(ROOM, "+-")                     # orchard: '+' and '-'; waste, river stay 0
+    want[5 + 0, 3, 1] = 1                                  # agent_0.position
+    want[5 + 1, 3, 2] = 1                                  # agent_0.ahead: facing right
+    want[8 + 0, 1, 4] = 1                                  # agent_1.position
+    want[8 + 1, 2, 4] = 1                                  # agent_1.ahead: facing down
+    want[11 + 2, 3, 3] = 1                                 # agent_2.frozen: the cell it left; no position/ahead
+    for c, name in enumerate(state_channels(3)):
+        assert np.array_equal(st[c], want[c]), name
+
+
+@pytest.mark.parametrize("facing", list(FACE))
+def test_per_agent_ahead_follows_facing(tmp_path, facing):
+    game = new_game(tmp_path, OPEN, num_agents=2)
+    place(game, 0, 3, 4, facing=facing)
+    place(game, 1, 1, 1, facing="down")
+    act(game, STAY, STAY)
+    st = game.state()[0]
+    dy, dx = FACE_STEP[facing]
+    # envs/grid.py docstring: agent_<i>.ahead is the cell agent i faces (one step its way, derived by hand)
+    assert cells_of(agent_plane(st, 0, "ahead")) == [(3 + dy, 4 + dx)]
+    assert cells_of(agent_plane(st, 0, "position")) == [(3, 4)]
+    assert cells_of(agent_plane(st, 1, "ahead")) == [(2, 1)]  # agent_1's planes are its own
+    assert cells_of(agent_plane(st, 1, "position")) == [(1, 1)]
+    assert agent_plane(st, 0, "frozen").sum() == 0 and agent_plane(st, 1, "frozen").sum() == 0
+
+
+@pytest.mark.parametrize(("cell", "action"), [((0, 2), UP), ((4, 2), DOWN), ((2, 0), LEFT), ((2, 4), RIGHT)],
+                         ids=["up", "down", "left", "right"])
+def test_per_agent_ahead_outside_the_map_is_not_marked(tmp_path, cell, action):
+    game = new_game(tmp_path, BORDERLESS, num_agents=1)
+    place(game, 0, *cell)
+    act(game, action)  # blocked by the edge, turns outward
+    st = game.state()[0]
+    # envs/grid.py docstring: agent_<i>.ahead is zero when the cell it faces is outside the map
+    assert agent_plane(st, 0, "ahead").sum() == 0
+    assert cells_of(agent_plane(st, 0, "position")) == [cell]
+
+
+def test_per_agent_planes_through_a_freeze(tmp_path):
+    env = harvest.parallel_env(layout=write_layout(tmp_path, CORRIDOR), num_agents=2, view_radius=3,
+                               freeze_steps=2)
+    env.reset(seed=0)
+    game = env.game
+    place(game, 0, 2, 1, facing="right")
+    place(game, 1, 2, 3, facing="up")
+    st = env.state()
+    # before the tag (placed by hand): agent_1 on (2, 3), facing up to (1, 3), not frozen
+    assert cells_of(agent_plane(st, 1, "position")) == [(2, 3)]
+    assert cells_of(agent_plane(st, 1, "ahead")) == [(1, 3)]
+    assert agent_plane(st, 1, "frozen").sum() == 0
+    env.step({"agent_0": TAG, "agent_1": STAY})
+    for t in range(2):  # after the tag step and after the first of the 2 steps it sits out (the second ends
+        # with its return, grid.py step 5)
+        st = env.state()
+        assert game.out[0, 1], t
+        # envs/grid.py docstring: off the map while frozen -- no position, no ahead; frozen marks the cell left
+        assert agent_plane(st, 1, "position").sum() == 0, t
+        assert agent_plane(st, 1, "ahead").sum() == 0, t
+        assert cells_of(agent_plane(st, 1, "frozen")) == [(2, 3)], t
+        assert cells_of(agent_plane(st, 0, "position")) == [(2, 1)], t  # the tagger is untouched
+        assert agent_plane(st, 0, "frozen").sum() == 0, t
+        env.step({"agent_0": STAY, "agent_1": STAY})
+    # back on the map (grid.py step 5: at a spawn point): position there, frozen plane cleared
+    assert not game.out[0, 1]
+    st = env.state()
+    assert cells_of(agent_plane(st, 1, "position")) == [pos(game, 1)]
+    assert pos(game, 1) in {tuple(s) for s in game.layout.spawn.tolist()}
+    assert agent_plane(st, 1, "frozen").sum() == 0 and agent_plane(st, 1, "ahead").sum() == 1
+
+
+def test_per_agent_state_of_cleanup_shows_river_and_waste(tmp_path):
+    game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, waste_spawn_prob=0.0, spawn_prob_max=0.0)
+    place(game, 0, 2, 8, facing="left")
+    act(game, STAY)
+    st = game.state()[0]
+    # derived by hand from the RIVER text (legend in envs/layouts.py): river '~' and 'w', waste 'w'
+    assert np.array_equal(st[3], legend_layer(RIVER, "~w"))
+    assert np.array_equal(st[2], legend_layer(RIVER, "w"))
+    assert np.array_equal(st[4], legend_layer(RIVER, "-"))
+    assert cells_of(agent_plane(st, 0, "ahead")) == [(2, 7)]
+
+
+@pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
+def test_both_state_layouts_describe_one_world(module):
+    # envs/grid.py docstring: the shared channels are the per-agent planes merged (agents anonymous) and the
+    # map channels are the same; held on a random rollout with tagging, so agents freeze and return
+    layout = {harvest: "harvest_tiny", cleanup: "cleanup_tiny"}[module]
+    kw = {"layout": layout, "num_agents": 3, "view_radius": 2, "freeze_steps": 3}
+    per, shared = module.vector_env(2, **kw), module.vector_env(2, state_layout="shared", **kw)
+    per.reset(seed=5)
+    shared.reset(seed=5)
+    rng = np.random.default_rng(0)
+    frozen_seen = 0
+    for _ in range(150):
+        a = rng.integers(per.action_space.n, size=(2, 3))
+        per.step(a)
+        shared.step(a)
+        p, s = per.state(), shared.state()
+        assert np.array_equal(p[:, :5], s[:, :5])
+        for plane, channel in (("position", "agents"), ("ahead", "ahead"), ("frozen", "frozen")):
+            merged = np.bitwise_or.reduce(p[:, [MAP + 3 * i + PLANE[plane] for i in range(3)]], axis=1)
+            assert np.array_equal(merged, s[:, CH[channel]]), plane
+        # one plane per agent: exactly one position cell while on the map, one frozen cell while off it
+        on = p[:, MAP::3].sum(axis=(2, 3))
+        off = p[:, MAP + 2::3].sum(axis=(2, 3))
+        assert np.array_equal(on, (~per.out).astype(on.dtype)) and np.array_equal(off, per.out.astype(off.dtype))
+        frozen_seen += int(per.out.sum())
+    assert frozen_seen > 0  # the rollout did freeze agents (ours, no source: a check on the test itself)
 
 
 @pytest.mark.parametrize("radius", [1, 2, 4])
@@ -738,10 +910,10 @@ s....
 @pytest.mark.parametrize(("cell", "action"), [((0, 2), UP), ((4, 2), DOWN), ((2, 0), LEFT), ((2, 4), RIGHT)],
                          ids=["up", "down", "left", "right"])
 def test_full_view_ahead_outside_the_map_is_not_marked(tmp_path, cell, action):
-    game = new_game(tmp_path, BORDERLESS, num_agents=1, full_view=True)
+    game = new_game(tmp_path, BORDERLESS, num_agents=1, full_view=True, state_layout="shared")
     place(game, 0, *cell)
     obs, *_ = act(game, action)  # blocked by the edge (cells outside count as walls), turns outward
     # CHANNELS table: 'ahead' is the cell the observer faces; that cell is outside the (H, W) view, so no
-    # cell of the map is marked -- as state() already does for the same case
+    # cell of the map is marked -- as the shared state() already does for the same case
     assert obs[0, 0, CH["ahead"]].sum() == 0
     assert game.state()[0, CH["ahead"]].sum() == 0

@@ -15,11 +15,12 @@ import numpy as np
 import pytest
 import torch
 
+import envs.harvest_v0 as harvest
 from envs.metrics import METRIC_NAMES
 from marl_core.config import config_to_dict, parse_config
 from marl_core.errors import CheckpointError, ConfigError
 from marl_core.learners import build_learner
-from marl_core.maddpg import critic_input_shape
+from marl_core.maddpg import AUTO_CRITIC_INPUT, critic_input_shape, resolve_critic_input
 from marl_core.nets import AgentNet
 from marl_core.policy import AgentPolicy
 from marl_core.spec import TeamSpec
@@ -45,7 +46,7 @@ def run_config(game: str, learner: dict, log: dict | None = None, num_agents: in
         "env": {"name": game, "params": game_params(game, num_agents), "num_envs": 2},
         "learner": {"learning_starts": 100, "train_every": 3, "batch_size": 16, "buffer_size": 2000, **NET,
                     **learner},
-        "train": {"total_steps": 300, "eval_every": 150, "eval_episodes": 2, "random_episodes": 2,
+        "train": {"total_steps": 300, "eval_every": 150, "eval_episodes": 2,
                   "checkpoint_every": 150, "seed": 0},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False, **(log or {})},
     }
@@ -371,6 +372,83 @@ def test_maddpg_critic_sees_the_joint_action(critic):
     assert (q[:, 0] - q_other[:, 0]).abs().max() > 1e-6
 
 
+# ---------------------------------------------------------------------------------------------- critic input
+def _world(num_agents: int, state_layout: str, steps: int = 7, seed: int = 3):
+    """Four copies of harvest_tiny after a few random steps (tagging on, so some agents may be frozen)."""
+    game = harvest.vector_env(4, **game_params("harvest_v0", num_agents), state_layout=state_layout)
+    game.reset(seed=seed)
+    rng = np.random.default_rng(seed)
+    for _ in range(steps):
+        game.step(rng.integers(game.action_space.n, size=(4, num_agents)))
+    return game
+
+
+def _swap_agents(game, i: int, j: int) -> None:
+    """The same world with agents i and j trading places, facings and freezes."""
+    for name in ("cell", "facing", "out", "frozen_left"):
+        a = getattr(game, name)
+        a[:, [i, j]] = a[:, [j, i]]
+    game._place_agents()
+
+
+def _state_critic_values(layout: str, state: np.ndarray, actions: np.ndarray) -> torch.Tensor:
+    N = actions.shape[1]
+    spec = make_team_env("harvest_v0", {**game_params("harvest_v0", N), "state_layout": layout}, 1, 0).spec
+    learner = build_learner(spec, learner_config("maddpg", critic_input="state"), seed=0)
+    assert learner.critic_source == "state"
+    x = learner._x({"state": state, "next_state": state}, "obs")
+    with torch.no_grad():
+        return learner.critic(x, one_hot(torch.as_tensor(actions), spec.num_actions).reshape(len(x), -1))
+
+
+def test_maddpg_state_critic_tells_agents_apart():
+    N = 3
+    spec = game_spec("harvest_v0", N)
+    # envs/grid.py docstring (state channels, per_agent): 5 map channels + 3 planes per agent over the map;
+    # harvest_tiny is 9 x 9 (README, maps)
+    assert critic_input_shape(spec, "state") == (5 + 3 * N, 9, 9)
+    game = _world(N, "per_agent")
+    state = game.state()
+    actions = np.random.default_rng(0).integers(spec.num_actions, size=(4, N))
+    # swapping agents 0 and 1 in the world swaps their planes (channels 5..7 and 8..10), nothing else
+    swapped = state.copy()
+    swapped[:, 5:8], swapped[:, 8:11] = state[:, 8:11], state[:, 5:8]
+    _swap_agents(game, 0, 1)
+    assert np.array_equal(game.state(), swapped)
+    assert (swapped != state).any(axis=(1, 2, 3)).all()  # in every copy the two agents differ somewhere
+    q = _state_critic_values("per_agent", state, actions)
+    q_swapped = _state_critic_values("per_agent", swapped, actions)
+    assert q.shape == (4, N)
+    # Q_i depends on where agent i is, not only on where some agent is (ours, no source: the reason for the
+    # per-agent layout); every copy's Q_0 and Q_1 move
+    assert ((q[:, :2] - q_swapped[:, :2]).abs() > 1e-6).all()
+
+
+def test_shared_state_critic_cannot_tell_agents_apart():
+    N = 3
+    game = _world(N, "shared")
+    state = game.state()
+    assert state.shape[1:] == (9, 9, 9)  # envs/grid.py docstring (shared): the 9 observation channels
+    _swap_agents(game, 0, 1)
+    # agents are anonymous in the shared layout: the swapped world has the same state, byte for byte
+    assert np.array_equal(game.state(), state)
+    actions = np.random.default_rng(0).integers(game.action_space.n, size=(4, N))
+    q = _state_critic_values("shared", state, actions)
+    assert torch.equal(q, _state_critic_values("shared", game.state(), actions))  # so Q_i cannot move
+
+
+def test_maddpg_auto_critic_input():
+    # auto = AUTO_CRITIC_INPUT where the env has a state (measured by scripts/compare_critic_inputs.py; the
+    # figures are in the marl_core/maddpg.py docstring), observations where it has none (CartPole)
+    assert AUTO_CRITIC_INPUT == "observations"
+    learner = build_learner(game_spec("harvest_v0", 2), learner_config("maddpg"), seed=0)
+    assert learner.critic_source == AUTO_CRITIC_INPUT
+    cartpole = make_team_env(CARTPOLE, {}, 1, 0).spec
+    assert build_learner(cartpole, learner_config("maddpg"), seed=0).critic_source == "observations"
+    assert resolve_critic_input("observations", True) == "observations"
+    assert resolve_critic_input("state", True) == "state"
+
+
 # ---------------------------------------------------------------------------------------------- rejected input
 def test_state_critic_on_an_env_without_state_is_refused(tmp_path):
     data = run_config("harvest_v0", {"kind": "maddpg", "critic_input": "state"})
@@ -380,6 +458,13 @@ def test_state_critic_on_an_env_without_state_is_refused(tmp_path):
                                           r"state\(\)"):
         run(parse_config(data), out)
     assert not out.exists()  # refused before the run directory is made
+
+
+def test_unknown_critic_input_is_refused_on_one_line():
+    with pytest.raises(ConfigError) as err:
+        resolve_critic_input("world", True)
+    assert str(err.value) == ("learner.critic_input = 'world' is not allowed; expected one of 'auto', 'state', "
+                              "'observations'")
 
 
 def _policy_file(tmp_path) -> tuple:

@@ -451,3 +451,25 @@ def test_one_idqn_update_is_a_double_dqn_huber_adam_step(share):
     for rule, sign, what in [("dqn", 1.0, "plain DQN target"), ("double", -1.0, "sign-flipped loss")]:
         wrong, wrong_opt, _ = hand_update(rule, sign)
         assert_differs(learner.q, learner.opt, wrong, wrong_opt, what)
+
+
+@pytest.mark.parametrize("kind", ["idqn", "maddpg"])
+def test_learning_rate_follows_its_linear_schedule(kind):
+    # lr -> lr_end linearly over lr_decay_steps env steps, then lr_end (the config's documented schedule;
+    # common practice (no source))
+    extra = {"actor_lr": 2e-3} if kind == "maddpg" else {}
+    learner = build_learner(team_spec(), learner_config(kind, lr=1e-3, lr_end=1e-4, lr_decay_steps=1000,
+                                                        **extra), 0)
+    # (optimiser, its base rate): the actors' rate is scaled by the same factor as the critic's
+    optimisers = [(learner.opt, 1e-3)] if kind == "idqn" else [(learner.critic_opt, 1e-3),
+                                                               (learner.actor_opt, 2e-3)]
+    for steps, scale in ((0, 1.0), (500, 0.55), (1000, 0.1), (5000, 0.1)):
+        learner.schedule(steps)
+        for opt, base in optimisers:
+            assert [g["lr"] for g in opt.param_groups] == pytest.approx([base * scale] * len(opt.param_groups))
+
+
+def test_constant_learning_rate_without_lr_end():
+    learner = build_learner(team_spec(), learner_config("idqn", lr=1e-3), 0)
+    learner.schedule(10**6)
+    assert learner.opt.param_groups[0]["lr"] == 1e-3
