@@ -120,6 +120,7 @@ def _fmt(x) -> str:
 def _table(summary: dict) -> str:
     """The learned team beside every baseline team (columns), one row per metric."""
     teams = summary.get("baselines") or {"random": summary.get("random") or {}}
+    teams = {n: teams[n] for n in sorted(teams, key=lambda n: n != "random")}  # random first, then as given
     width = max(10, *(len(n) + 2 for n in teams))
     lines = [f"{'':<16}{'learned':>{width}}" + "".join(f"{n:>{width}}" for n in teams)]
     for key in ("return_mean", "efficiency", "equality", "sustainability", "peace"):

@@ -42,6 +42,7 @@ from marl_core.config import RunConfig, config_hash, dump_config, load_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
 from marl_core.learners import build_learner
+from marl_core.maddpg import resolve_critic_input
 from marl_core.policy import atomic_torch_save, safe_torch_load
 from marl_core.replay import Replay
 from marl_core.rollout import Collector, evaluate
@@ -70,8 +71,9 @@ class _Run:
         torch.set_num_threads(cfg.learner.torch_threads)
         seed = cfg.train.seed
         e = cfg.env
-        # the learner decides whether it reads the state (``uses_state``); only these configs may want it
-        wants_state = cfg.learner.kind == "maddpg" and cfg.learner.critic_input != "observations"
+        # only a critic that reads the state needs state() on every step (``auto`` may mean either)
+        wants_state = cfg.learner.kind == "maddpg" and resolve_critic_input(cfg.learner.critic_input,
+                                                                            has_state=True) == "state"
         self.env = make_team_env(e.name, e.params, e.num_envs, seed, with_state=wants_state)
         self.spec = self.env.spec
         self.eval_env = _eval_env(cfg, cfg.train.eval_episodes, render=cfg.log.gif_every > 0)

@@ -6,10 +6,11 @@ Trains ``configs/spread_maddpg.yaml`` (``--steps`` overrides ``train.total_steps
 per-agent policies alone (decentralised execution) on the raw mpe2 env and measures, per episode of 25
 steps: the team's mean return per agent, the mean over steps of the summed distance from each landmark to
 its nearest agent, and the number of agent-agent collisions (pairs in contact, counted per step). A uniformly
-random team is measured the same way. Lowe et al. 2017 report (appendix, from memory, low confidence; their
-definitions may differ from ours) an average distance of 1.767 for MADDPG against 1.858 for DDPG, and
+random team, the no-op team (action 0: no action) and the ``landmark_walk`` heuristic (agent i walks to
+landmark i, ``marl_core.baselines``) are measured the same way. Lowe et al. 2017 report (appendix, from
+memory, low confidence; their definitions may differ from ours) an average distance of 1.767 for MADDPG against 1.858 for DDPG, and
 0.209 against 0.375 collisions: read them as orders of magnitude, not as a pass mark. This is a script,
-not a test; the CI test trains a shorter budget and checks only that MADDPG beats the random team.
+not a test; the CI test trains a shorter budget over 3 seeds and checks that MADDPG beats the no-op team.
 """
 
 from __future__ import annotations
@@ -61,6 +62,7 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--json", action="store_true")
     args = p.parse_args(argv)
 
+    from marl_core.baselines import landmark_walk
     from marl_core.config import load_config
     from marl_core.policy import AgentPolicy
     from marl_core.train import run
@@ -77,23 +79,31 @@ def main(argv: list[str] | None = None) -> int:
             return {a: int(pols[a].act(np.asarray(obs[a], np.float32)[None])[0]) for a in obs}
 
         rng = np.random.default_rng(0)
+        walk = landmark_walk(len(agents))
+
+        def walker(obs):
+            acts = walk(np.stack([np.asarray(obs[a], np.float32) for a in agents])[None])[0]
+            return {a: int(acts[i]) for i, a in enumerate(agents) if a in obs}
+
         result = {
             "env_steps": summary["env_steps"],
             "maddpg": measure(learned, args.episodes, seed=10_000),
             "random": measure(lambda obs: {a: int(rng.integers(5)) for a in obs}, args.episodes, seed=10_000),
+            "noop": measure(lambda obs: dict.fromkeys(obs, 0), args.episodes, seed=10_000),
+            "landmark_walk": measure(walker, args.episodes, seed=10_000),
             "published": PUBLISHED,
         }
     if args.json:
         print(json.dumps(result, indent=2))
     else:
         print(f"simple_spread_v3, 3 agents, {result['env_steps']} env steps of MADDPG training")
-        print(f"{'':<12}{'return':>10}{'distance':>10}{'collisions':>12}")
-        for k in ("maddpg", "random"):
+        print(f"{'':<14}{'return':>10}{'distance':>10}{'collisions':>12}")
+        for k in ("maddpg", "random", "noop", "landmark_walk"):
             m = result[k]
-            print(f"{k:<12}{m['return_mean']:>10.2f}{m['average_distance']:>10.3f}{m['collisions']:>12.3f}")
+            print(f"{k:<14}{m['return_mean']:>10.2f}{m['average_distance']:>10.3f}{m['collisions']:>12.3f}")
         for k in ("maddpg", "ddpg"):
             m = PUBLISHED[k]
-            print(f"{'Lowe ' + k:<12}{'':>10}{m['average_distance']:>10.3f}{m['collisions']:>12.3f}")
+            print(f"{'Lowe ' + k:<14}{'':>10}{m['average_distance']:>10.3f}{m['collisions']:>12.3f}")
         print(PUBLISHED["source"])
     return 0
 

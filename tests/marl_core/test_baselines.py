@@ -128,3 +128,16 @@ def test_a_list_of_baselines_keeps_random_and_an_unknown_name_is_refused(tmp_pat
     assert list(summary["baselines"]) == ["random", "greedy"]
     with pytest.raises(ConfigError, match=r"train.baselines = 'lazy' is not allowed: expected 'auto' or a list"):
         _tiny(baselines=["lazy"])
+
+
+def test_cli_table_shows_every_baseline_team_random_first():
+    from marl_core.cli import _table
+
+    row = {"return_mean": 1.0, "efficiency": 0.5, "equality": 1.0, "sustainability": None, "peace": 2.0}
+    summary = {**row, "baselines": {"greedy": dict(row, efficiency=0.25), "random": dict(row, efficiency=0.125)}}
+    lines = _table(summary).splitlines()
+    assert lines[0].split() == ["learned", "random", "greedy"]
+    assert lines[2].split() == ["efficiency", "0.500", "0.125", "0.250"]
+    assert lines[4].split() == ["sustainability", "n/a", "n/a", "n/a"]
+    old = _table({**row, "random": dict(row, efficiency=0.125)})  # a summary from before baselines
+    assert old.splitlines()[0].split() == ["learned", "random"]

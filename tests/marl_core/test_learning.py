@@ -30,15 +30,16 @@ def _median(summaries: list[dict], key: str, team: str | None = None) -> float:
 
 @pytest.mark.slow
 def test_idqn_balances_cartpole_on_the_median_of_three_seeds(tmp_path):
-    runs = _train("cartpole_idqn.yaml", tmp_path, **{"train.total_steps": 30_000, "train.eval_every": 30_000,
-                                                     "learner.lr_decay_steps": 30_000,
-                                                     "train.eval_episodes": 100})
+    runs = _train("cartpole_idqn.yaml", tmp_path)  # the full config: 150k env steps, 100 greedy episodes
     assert all(s["eval_episodes"] == 100 for s in runs)
     # gymnasium's CartPole-v0 "solved" threshold, gymnasium.spec("CartPole-v0").reward_threshold == 195.0
-    # (mean over 100 consecutive episodes); we play v1 (episodes up to 500 steps), so 195 is a low bar here.
-    # Measured on this project's machine: seeds 0-2 give ... (median ...).
+    # (mean over 100 consecutive episodes), on the median of 3 seeds; we play v1, whose episodes run to 500
+    # steps. Measured on this project's machine (AMD EPYC), seeds 0-4: 500, 489.75, 500, 500, 232.67 (random
+    # 22.5): the worst seed is 38 above the bar and the median 305 above it; scripts/learning_checks.py
+    # checks v1's own threshold, IQM >= 475 over 5 seeds (measured 496.6).
     returns = [s["return_mean"] for s in runs]
     assert median(returns) >= 195.0, returns
+    # and far above the random team, the strongest trivial team here (margin 150 ours, no source)
     assert median(returns) > _median(runs, "return_mean", "random") + 150.0, returns
 
 
@@ -47,8 +48,9 @@ def test_quickstart_team_beats_every_scripted_team(tmp_path):
     runs = _train("harvest_idqn.yaml", tmp_path)
     # bar (ours, no source): the learned team's median efficiency beats the median of the strongest
     # non-learning team (random, no-op, greedy, restrained), each played on the same evaluation episodes.
-    # Measured here (100k steps, 20 episodes): learned 0.770 / 0.768 / 0.808 against greedy 0.565 / 0.575 /
-    # 0.598 and restrained 0.603 / 0.607 / 0.635, the strongest; the margin of the worst seed is 0.13.
+    # Measured here (100k steps, 20 episodes), seeds 0-2: learned 0.782 / 0.830 / 0.794 against restrained
+    # 0.689 / 0.689 / 0.694 (the strongest), greedy 0.590 / 0.590 / 0.598, random 0.18-0.21, no-op 0; the
+    # worst seed clears the strongest team by 0.09, the median by 0.11.
     learned = [s["efficiency"] for s in runs]
     best = max(_median(runs, "efficiency", t) for t in runs[0]["baselines"])
     assert median(learned) > best, (learned, best)
@@ -56,9 +58,11 @@ def test_quickstart_team_beats_every_scripted_team(tmp_path):
 
 @pytest.mark.slow
 def test_maddpg_beats_the_noop_team_on_cooperative_navigation(tmp_path):
-    runs = _train("spread_maddpg.yaml", tmp_path, **{"train.total_steps": 20_000, "train.eval_every": 20_000})
-    # mpe2 simple_spread_v3 (an env we did not write); the no-op team is the strongest trivial team there
-    # (noop ~-23.5 vs random ~-26 per agent over 100 episodes, measured here). Bar: the median learned
-    # return per agent beats the no-op team's by 2 (ours, no source). Measured here: ...
+    runs = _train("spread_maddpg.yaml", tmp_path, **{"train.total_steps": 40_000, "train.eval_every": 40_000})
+    # mpe2's simple_spread_v3 (an env we did not write). The no-op team is the strongest TRIVIAL team there
+    # (it beats random); the landmark_walk heuristic is far stronger and is reported, not used as the bar.
+    # Bar (ours, no source): the median return per agent beats the no-op team's median by 1. Measured here
+    # at 40k steps (16 episodes): learned -19.62 / -20.33 / -20.50 against no-op -23.40 / -23.90 / -24.14
+    # (every seed 3.5 or more above its no-op team) and landmark_walk -12.19 / -12.78 / -12.87.
     learned = [s["return_mean"] for s in runs]
-    assert median(learned) > _median(runs, "return_mean", "noop") + 2.0, learned
+    assert median(learned) > _median(runs, "return_mean", "noop") + 1.0, learned
