@@ -54,7 +54,8 @@ def _parser() -> argparse.ArgumentParser:
     t.add_argument("--quiet", action="store_true", help="no progress bar; one plain line per evaluation")
     v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off")
     v.add_argument("run_dir")
-    v.add_argument("--episodes", type=int, help="episodes to play (default: the run's train.eval_episodes)")
+    v.add_argument("--episodes", type=int, help="episodes to play, by the learned team and by every baseline "
+                   "team on the same seeds (default: the run's train.eval_episodes)")
     v.add_argument("--json", action="store_true", help="print JSON (same metric keys as summary.json)")
     v.add_argument("--gif", metavar="PATH", help="write a GIF of the first episode")
     a = sub.add_parser("ablate", help="run a sweep (a grid of runs over seeds) into a sweep directory")

@@ -79,6 +79,8 @@ def final_metrics(summary: dict[str, Any]) -> dict[str, Any]:
     out = {k: summary.get(k) for k in SUMMARY_METRICS}
     out["returns"] = summary.get("returns")
     out["random"] = {k: (summary.get("random") or {}).get(k) for k in SUMMARY_METRICS[2:]}
+    out["baselines"] = {team: {k: res.get(k) for k in SUMMARY_METRICS[2:]}
+                        for team, res in (summary.get("baselines") or {}).items()}
     return out
 
 

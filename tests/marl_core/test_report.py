@@ -492,3 +492,12 @@ def test_every_bundled_spec_has_enough_seeds_for_the_report():
     for path in specs:
         seeds = yaml.safe_load(path.read_text(encoding="utf-8"))["seeds"]
         assert len(seeds) >= FEW_SEEDS, (path.name, seeds)
+
+
+def test_the_ledger_copy_keeps_the_non_learning_teams(tmp_path):
+    root = make_sweep(tmp_path / "sweep", failed=None, nan=None, baselines_of=team_values)
+    (root / "runs" / "run1s3" / "summary.json").unlink()  # the report falls back to the ledger's copy
+    s = report_summary(root, reps=REPS)
+    run = next(r for r in s["runs"] if r["run_id"] == "run1s3")
+    assert run["baselines"]["greedy"]["efficiency"] == pytest.approx(3.3 + 0.01)  # team_values(1, 3)
+    assert run["baselines"]["noop"]["peace"] == 3.0
