@@ -115,7 +115,8 @@ def _envs(args: argparse.Namespace) -> int:
 
 
 def _fmt(x) -> str:
-    return "n/a" if x is None else f"{x:.3f}"
+    """A metric for the table; missing or non-finite (e.g. sustainability when nobody scores) is n/a."""
+    return "n/a" if x is None or x != x or x in (float("inf"), float("-inf")) else f"{x:.3f}"
 
 
 def _table(summary: dict) -> str:

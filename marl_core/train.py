@@ -230,8 +230,8 @@ class _Run:
         for i, agent in enumerate(self.spec.agents):
             self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
-                   "random": self.baselines["random"], "baselines": self.baselines, "learner": self.cfg.learner.kind, "env": self.cfg.env.name,
-                   "seed": self.cfg.train.seed}
+                   "random": self.baselines["random"], "baselines": self.baselines,
+                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:
             from marl_core.tb import add_hparams

@@ -134,7 +134,8 @@ def test_cli_table_shows_every_baseline_team_random_first():
     from marl_core.cli import _table
 
     row = {"return_mean": 1.0, "efficiency": 0.5, "equality": 1.0, "sustainability": None, "peace": 2.0}
-    summary = {**row, "baselines": {"greedy": dict(row, efficiency=0.25), "random": dict(row, efficiency=0.125)}}
+    summary = {**row, "baselines": {"greedy": dict(row, efficiency=0.25, sustainability=float("nan")),
+                                    "random": dict(row, efficiency=0.125)}}
     lines = _table(summary).splitlines()
     assert lines[0].split() == ["learned", "random", "greedy"]
     assert lines[2].split() == ["efficiency", "0.500", "0.125", "0.250"]
