@@ -31,6 +31,7 @@ from typing import Any
 
 import numpy as np
 
+from envs import GAMES
 from envs.scripted import TEAMS as SCRIPTED
 from envs.scripted import batched_team
 from marl_core.errors import ConfigError
@@ -47,8 +48,6 @@ KNOWN: tuple[str, ...] = (*ALWAYS, "noop", *SCRIPTED, "landmark_walk")
 
 def _noop_applies(env_name: str) -> bool:
     """Action 0 does nothing in our grid games (stay) and in mpe2's discrete actions (no action)."""
-    from envs import GAMES
-
     return (env_name in GAMES and env_name != "matrix_v0") or env_name.startswith("mpe2.")
 
 

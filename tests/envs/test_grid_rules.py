@@ -674,16 +674,22 @@ def test_harvest_rejects_a_layout_with_a_river():
         harvest.vector_env(1, layout="cleanup_tiny", num_agents=1)
 
 
-def test_shared_state_channels(tmp_path):
+def _tagged_room_state(tmp_path, **params):
+    """ROOM with 3 agents: agent_0 at (3, 1) facing right tags agent_2 at (3, 3), which leaves the map;
+    agent_1 stands at (1, 4) facing down. Returns the engine and ``state()`` after that step."""
     env = harvest.parallel_env(layout=write_layout(tmp_path, ROOM), num_agents=3, view_radius=2,
-                               regrow_table=[0.0], state_layout="shared")
+                               regrow_table=[0.0], **params)
     env.reset(seed=0)
     game = env.game
     place(game, 0, 3, 1, facing="right")
     place(game, 1, 1, 4, facing="down")
     place(game, 2, 3, 3)
     env.step({"agent_0": TAG, "agent_1": STAY, "agent_2": STAY})  # agent_2 is tagged and leaves (3, 3)
-    st = env.state()
+    return game, env.state()
+
+
+def test_shared_state_channels(tmp_path):
+    game, st = _tagged_room_state(tmp_path, state_layout="shared")
     layout = game.layout
     # harvest_v0 docstring: (9, H, W) uint8 with state_layout="shared"
     assert st.shape == (9, 7, 9) and st.dtype == np.uint8
@@ -744,15 +750,7 @@ def test_per_agent_state_space_is_exact(module, num_agents):
 
 
 def test_per_agent_state_cell_by_cell(tmp_path):
-    env = harvest.parallel_env(layout=write_layout(tmp_path, ROOM), num_agents=3, view_radius=2,
-                               regrow_table=[0.0])
-    env.reset(seed=0)
-    game = env.game
-    place(game, 0, 3, 1, facing="right")
-    place(game, 1, 1, 4, facing="down")
-    place(game, 2, 3, 3)
-    env.step({"agent_0": TAG, "agent_1": STAY, "agent_2": STAY})  # agent_2 is tagged and leaves (3, 3)
-    st = env.state()
+    game, st = _tagged_room_state(tmp_path)
     assert game.out[0].tolist() == [False, False, True]
     # the whole expected state, derived by hand in this test from the ROOM text and the placements above
     want = np.zeros((5 + 3 * 3, 7, 9), np.uint8)

@@ -153,29 +153,21 @@ def test_infos_report_action_and_frozen():
     np.testing.assert_array_equal(infos["frozen"], 0)
 
 
-def test_default_horizon_terminates_every_agent_at_max_cycles():
+def test_default_horizon_is_terminal():
     assert matrix.parallel_env().params["horizon"] == "terminal"   # module docstring: the default
-    par = matrix.parallel_env(max_cycles=3)
+
+
+@pytest.mark.parametrize("horizon", ["terminal", "time_limit"])
+def test_horizon_ends_every_agent_at_max_cycles_with_its_own_flag(horizon):
+    par = matrix.parallel_env(max_cycles=3, horizon=horizon)
     par.reset(seed=0)
     seen = []
     while par.agents:
         _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
-        assert not any(trunc.values())                       # module docstring: "terminal" never truncates
-        seen.append((all(term.values()), any(term.values())))
+        flag, other = (term, trunc) if horizon == "terminal" else (trunc, term)
+        assert not any(other.values())                       # module docstring: the other flag never fires
+        seen.append((all(flag.values()), any(flag.values())))
     assert seen == [(False, False), (False, False), (True, True)]   # module docstring: every agent at once
-    with pytest.raises(ActionError, match="after the episode ended"):
-        par.step({"agent_0": 0, "agent_1": 0})
-
-
-def test_time_limit_horizon_truncates_every_agent_at_max_cycles():
-    par = matrix.parallel_env(max_cycles=3, horizon="time_limit")
-    par.reset(seed=0)
-    seen = []
-    while par.agents:
-        _, _, term, trunc, _ = par.step(dict.fromkeys(par.agents, 0))
-        assert not any(term.values())                        # module docstring: "time_limit" never terminates
-        seen.append((all(trunc.values()), any(trunc.values())))
-    assert seen == [(False, False), (False, False), (True, True)]
     with pytest.raises(ActionError, match="after the episode ended"):
         par.step({"agent_0": 0, "agent_1": 0})
 
