@@ -35,7 +35,7 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       n_step: 1
       prioritized: false
       priority_alpha: 0.6
-      priority_beta0: 0.4
+      priority_beta_start: 0.4
       priority_eps: 1.0e-6
       target_update_every: 500
       eps_start: 1.0
@@ -145,8 +145,14 @@ def _not_allowed(key: str, value: Any, allowed: str) -> str:
     return f"{key} = {_show(value)} is not allowed: expected {allowed}"
 
 
+# Keys that an earlier version accepted under another name: the old name is refused with the new one.
+RENAMED: dict[str, str] = {"learner.priority_beta0": "learner.priority_beta_start"}
+
+
 def _unknown(key: str, prefix: str, candidates: Iterable[str]) -> str:
     """``unknown key 'a.b'; did you mean 'a.c'?`` (or the valid keys when none is close)."""
+    if key in RENAMED:
+        return f"key '{key}' was renamed: use '{RENAMED[key]}'"
     candidates = list(candidates)
     name = key[len(prefix):] if prefix and key.startswith(prefix) else key
     close = nearest(name, candidates)
@@ -325,10 +331,10 @@ class IDQNConfig(_LearnerBase):
     dueling: bool = Field(False, description="dueling head: Q = V + A - mean(A)")
     n_step: _PositiveInt = Field(1, description="steps of reward summed in the return before bootstrapping")
     prioritized: bool = Field(False, description="prioritized replay (proportional, with importance weights)")
-    # alpha 0.6, beta0 0.4: Schaul et al. 2016, proportional variant (REFERENCES, from memory)
+    # alpha 0.6, beta 0.4 at the start: Schaul et al. 2016, proportional variant (REFERENCES, from memory)
     priority_alpha: float = Field(0.6, ge=0.0, le=1.0, description="prioritized replay: exponent on "
                                   "priorities (0 = uniform)")
-    priority_beta0: float = Field(0.4, ge=0.0, le=1.0, description="prioritized replay: initial "
+    priority_beta_start: float = Field(0.4, ge=0.0, le=1.0, description="prioritized replay: initial "
                                   "importance-weight exponent, annealed to 1 over training")
     priority_eps: float = Field(1e-6, gt=0.0, description="prioritized replay: added to |TD error| so no "
                                 "priority is zero")

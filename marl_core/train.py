@@ -200,7 +200,7 @@ class _Run:
             self.episodes += int(st.end.sum())
             if (self.env_steps >= L.learning_starts and self.vec_steps % L.train_every == 0
                     and len(self.replay) >= L.batch_size):
-                beta = linear_schedule(self.env_steps, getattr(L, "priority_beta0", 1.0), 1.0, T.total_steps)
+                beta = linear_schedule(self.env_steps, getattr(L, "priority_beta_start", 1.0), 1.0, T.total_steps)
                 self.learner.schedule(self.env_steps)
                 for _ in range(L.updates_per_round):
                     batch = self.replay.sample(L.batch_size, beta=beta)

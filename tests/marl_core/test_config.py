@@ -83,7 +83,7 @@ def test_each_learner_kind_has_its_own_defaults():
     assert idqn.gamma == 0.99  # DQN, Mnih et al. 2015 (REFERENCES)
     assert maddpg.gamma == 0.95  # MADDPG, Lowe et al. 2017 (REFERENCES, from memory)
     assert maddpg.tau == 0.01  # MADDPG, Lowe et al. 2017 (REFERENCES, from memory)
-    assert (idqn.priority_alpha, idqn.priority_beta0) == (0.6, 0.4)  # Schaul et al. 2016 (from memory)
+    assert (idqn.priority_alpha, idqn.priority_beta_start) == (0.6, 0.4)  # Schaul et al. 2016 (from memory)
     assert (idqn.lr, idqn.batch_size) == (5e-4, 64)  # our choice (no source)
     assert (maddpg.lr, maddpg.batch_size) == (1e-3, 256)  # our choice (no source)
     assert idqn.eval_eps == 0.0  # greedy evaluation, our choice (DQN used 0.05 on Atari)
@@ -173,6 +173,11 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
 @pytest.mark.parametrize("data, overrides, message", [
     ({"learner": {"gama": 0.9}}, [], r"^unknown key 'learner\.gama'; did you mean 'learner\.gamma'\?$"),
     ({"lerner": {}}, [], r"^unknown key 'lerner'; did you mean 'learner'\?$"),
+    ({"learner": {"priority_beta0": 0.4}}, [],
+     r"^key 'learner\.priority_beta0' was renamed: use 'learner\.priority_beta_start'$"),
+    ({}, ["learner.priority_beta0=0.4"],
+     r"^--set learner\.priority_beta0=0\.4: key 'learner\.priority_beta0' was renamed: use "
+     r"'learner\.priority_beta_start'$"),
     ({"train": {"steps": 5}}, [], r"unknown key 'train\.steps'"),
     ({"learner": {"lr": "fast"}}, [], r"^learner\.lr = 'fast' is not allowed: expected a number > 0$"),
     ({"learner": {"double": 1}}, [], r"^learner\.double = 1 is not allowed: expected true or false$"),
