@@ -181,11 +181,16 @@ class GridGame(BatchedGame):
     """
 
     PARAMS: ClassVar[list[Param]] = []
+    # parameters an earlier version took, each with what replaced it (refused with that text)
+    RENAMED: ClassVar[dict[str, str]] = {}
     has_clean_beam: ClassVar[bool] = False
     info_keys: ClassVar[tuple[str, ...]] = ("resources_taken", "tags_fired", "times_tagged", "frozen")
 
     def __init__(self, num_envs: int = 1, **params: Any):
         self.num_envs = B = self.check_num_envs(self.name, num_envs)
+        for key in params:
+            if key in self.RENAMED:
+                raise ParamError(f"{self.name}: parameter '{key}' is no longer accepted: {self.RENAMED[key]}")
         p = self.params = resolve(self.name, self.PARAMS, params)
         self.layout: Layout = load_layout(p["layout"])
         self._check_layout(self.layout)

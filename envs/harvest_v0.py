@@ -76,6 +76,8 @@ regrow_table       list   0,.01,.01,.05,.05,.1 regrowth probability by neighbour
 the behaviour of the first release: truncation at ``max_cycles``). Later in v0: the ``state_layout``
 parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="shared"``. Moves,
 observations, rewards and infos are unchanged for the same seed; only ``state()`` (and ``state_space``) differ.
+Later in v0: new bundled maps, with patches of many sizes and shapes; episodes on them differ from the first
+release's for the same seed. The rules are unchanged.
 """
 
 from __future__ import annotations

@@ -15,9 +15,25 @@ Legend (one character per cell; every line of a layout has the same length):
 Blank lines at the start and end are ignored; lines starting with ``;`` are comments. Cells outside the map
 count as walls. A bad layout raises :class:`envs.errors.LayoutError` naming the line and column.
 
-Bundled layouts (``bundled_layouts()``): ``harvest_tiny``, ``harvest_small``, ``harvest_standard``,
-``cleanup_tiny``, ``cleanup_small``, ``cleanup_standard``. A game's ``layout`` parameter takes one of those
-names or a path to a ``.txt`` file.
+Bundled layouts (``bundled_layouts()``), each drawn for this project:
+
+====================  =========  ======  =================================================================
+name                  size       spawns  what it holds
+====================  =========  ======  =================================================================
+``harvest_tiny``      9 x 9      4       one lopsided patch of 12 cells (tests)
+``harvest_small``     15 x 22    6       a large blob (20 cells) beside a ring (16), a band (8) and two
+                                         clumps (5, 6): 55 cells
+``harvest_standard``  20 x 36    10      two large patches (26, 31), two rings, a wide block, bands and
+                                         clumps of 6 to 18 cells: 146 cells
+``cleanup_tiny``      6 x 11     4       a stream down the middle, a plot of 4 cells on each bank (tests)
+``cleanup_small``     11 x 22    5       a river of 35 cells winding down the middle, an orchard of 27
+                                         cells on each bank
+``cleanup_standard``  14 x 32    10      a wider river (78 cells) winding between two orchards of 36
+====================  =========  ======  =================================================================
+
+On the harvest maps, cells of different patches are more than ``regrow_radius`` (2) apart, so no patch
+reseeds another: one stripped bare stays bare. A game's ``layout`` parameter takes one of those names or a
+path to a ``.txt`` file.
 """
 
 from __future__ import annotations

@@ -4,6 +4,27 @@
 text; ``write_gif(frames, path, fps)`` encodes frames with Pillow (``envs.episode.play_episode`` collects
 them). GIFs rather than TensorBoard videos: ``SummaryWriter.add_video`` needs an old moviepy and otherwise
 writes nothing.
+
+**Palette** (``PALETTE``; the one place it is described). A dark map, so that the few things that matter
+stand out:
+
+================  ===============  ==========================================================
+key               RGB              marks
+================  ===============  ==========================================================
+``ground``        (24, 26, 32)     open ground and spawn points
+``wall``          (92, 96, 110)    walls
+``orchard``       (38, 52, 40)     orchard cells (a resource may grow here)
+``resource``      (214, 178, 56)   a resource: a gold disc in the middle of its orchard cell
+``river``         (28, 116, 124)   clean river cells
+``waste``         (122, 64, 112)   polluted river cells
+``tag``           (236, 96, 176)   cells a tag beam covered this step
+``clean``         (176, 238, 226)  cells a clean beam covered this step
+================  ===============  ==========================================================
+
+**Agents** are triangles that point the way the agent faces, coloured by index from ``AGENT_COLOURS``: the
+seven colours of Okabe & Ito's colour-universal-design palette other than black (chosen to stay apart under
+the common colour-vision deficiencies; see docs/sources.md, "Colour palette"), then white. Agents 8 and 9
+reuse the first two colours as hollow triangles. Frozen agents are not drawn.
 """
 
 from __future__ import annotations
@@ -19,20 +40,53 @@ __all__ = ["PALETTE", "AGENT_COLOURS", "grid_frame", "grid_text", "write_gif"]
 CELL = 12  # pixels per map cell
 
 PALETTE: dict[str, tuple[int, int, int]] = {
-    "ground": (231, 224, 205),
-    "wall": (84, 78, 92),
-    "orchard": (206, 222, 168),
-    "resource": (196, 62, 58),
-    "river": (118, 170, 214),
-    "waste": (122, 104, 56),
-    "tag": (255, 214, 90),
-    "clean": (236, 248, 255),
+    "ground": (24, 26, 32),
+    "wall": (92, 96, 110),
+    "orchard": (38, 52, 40),
+    "resource": (214, 178, 56),
+    "river": (28, 116, 124),
+    "waste": (122, 64, 112),
+    "tag": (236, 96, 176),
+    "clean": (176, 238, 226),
 }
+# Okabe & Ito's palette without black (docs/sources.md, "Colour palette"), ordered so the first colours
+# are the ones furthest from the gold of a resource, then white
 AGENT_COLOURS: tuple[tuple[int, int, int], ...] = (
-    (40, 92, 200), (232, 128, 24), (150, 60, 170), (20, 150, 140), (210, 60, 140),
-    (110, 110, 20), (30, 30, 30), (240, 240, 240), (100, 60, 30), (80, 200, 80),
+    (86, 180, 233),   # sky blue
+    (213, 94, 0),     # vermillion
+    (0, 158, 115),    # bluish green
+    (204, 121, 167),  # reddish purple
+    (255, 255, 255),  # white (ours, in place of the palette's black, which a dark map would hide)
+    (0, 114, 178),    # blue
+    (230, 159, 0),    # orange
+    (240, 228, 66),   # yellow
 )
 _TEXT = {"wall": "#", "ground": ".", "orchard": "-", "resource": "+", "river": "~", "waste": "w"}
+
+
+def _triangle() -> np.ndarray:
+    """(CELL, CELL) bool mask of a triangle pointing up: apex at the top centre, base one pixel above the
+    bottom edge."""
+    r, c = np.mgrid[0:CELL, 0:CELL]
+    half = (r - 1) * (CELL / 2 - 1) / (CELL - 3)
+    return (r >= 1) & (r <= CELL - 2) & (np.abs(c - (CELL - 1) / 2) <= half + 0.5)
+
+
+def _outline(mask: np.ndarray) -> np.ndarray:
+    """The pixels of ``mask`` with a 4-neighbour outside it."""
+    inner = mask.copy()
+    inner[1:-1, 1:-1] = mask[1:-1, 1:-1] & mask[:-2, 1:-1] & mask[2:, 1:-1] & mask[1:-1, :-2] & mask[1:-1, 2:]
+    inner[[0, -1], :] = False
+    inner[:, [0, -1]] = False
+    return mask & ~inner
+
+
+_UP = _triangle()
+# facing 0 up, 1 down, 2 left, 3 right (envs.grid); np.rot90 turns counter-clockwise
+_FACING = (_UP, np.rot90(_UP, 2), np.rot90(_UP, 1), np.rot90(_UP, -1))
+_HOLLOW = tuple(_outline(m) for m in _FACING)
+_r, _c = np.mgrid[0:CELL, 0:CELL]
+_DISC = (_r - (CELL - 1) / 2) ** 2 + (_c - (CELL - 1) / 2) ** 2 <= (CELL / 4) ** 2
 
 
 def _cell_layers(game: Any, index: int) -> dict[str, np.ndarray]:
@@ -61,19 +115,17 @@ def grid_frame(game: Any, index: int = 0) -> np.ndarray:
         inside = (y >= 0) & (y < H) & (x >= 0) & (x < W)
         img[y[inside], x[inside]] = PALETTE[kind]
     big = np.repeat(np.repeat(img, CELL, axis=0), CELL, axis=1)
-    q = CELL // 4
     ry, rx = np.nonzero(layers["resource"])
     for y, x in zip(ry, rx):
-        big[y * CELL + q:(y + 1) * CELL - q, x * CELL + q:(x + 1) * CELL - q] = PALETTE["resource"]
+        big[y * CELL:(y + 1) * CELL, x * CELL:(x + 1) * CELL][_DISC] = PALETTE["resource"]
     pos = game.agent_positions(index)
+    n = len(AGENT_COLOURS)
     for i, (y, x) in enumerate(pos):
         if game.out[index, i]:
             continue
-        colour = AGENT_COLOURS[i % len(AGENT_COLOURS)]
-        big[y * CELL + 1:(y + 1) * CELL - 1, x * CELL + 1:(x + 1) * CELL - 1] = colour
-        dy, dx = ((-1, 0), (1, 0), (0, -1), (0, 1))[int(game.facing[index, i])]
-        cy, cx = y * CELL + CELL // 2 + dy * (CELL // 3), x * CELL + CELL // 2 + dx * (CELL // 3)
-        big[cy - 1:cy + 2, cx - 1:cx + 2] = (255, 255, 255)
+        shapes = _FACING if i < n else _HOLLOW
+        big[y * CELL:(y + 1) * CELL, x * CELL:(x + 1) * CELL][shapes[int(game.facing[index, i])]] = \
+            AGENT_COLOURS[i % n]
     return big
 
 

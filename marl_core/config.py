@@ -244,6 +244,8 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
     given = dict(given)
     for key, value in list(given.items()):
         param = by_name.get(key)
+        if key in getattr(module, "RENAMED", {}):
+            raise _own_error(f"env.params.{key} is no longer accepted: {module.RENAMED[key]}")
         if param is None:
             raise _own_error(_unknown(f"env.params.{key}", "env.params.", by_name))
         if value is None and param.default is None:

@@ -157,53 +157,51 @@ def test_waste_spawns_per_clean_river_cell(tmp_path, prob):
     river = "~~~~~ww~~~~~~www~~~~"
     copies = 1500
     game = cleanup.vector_env(copies, layout=write_layout(tmp_path, cleanup_layout(river)), num_agents=1,
-                              view_radius=1, waste_spawn_prob=prob)
+                              view_radius=1, pollution_rate=prob)
     game.reset(seed=7)
     stay(game)
     row = game.interior(game.waste)[:, 1, 1:1 + len(river)]  # (copies, cells of the river row)
     clean = np.array([c == "~" for c in river])
     assert row[:, ~clean].all()  # legend in envs/layouts.py: 'w' starts polluted; waste only goes by cleaning
-    # cleanup_v0 docstring (dynamics 1): every clean river cell becomes polluted with prob waste_spawn_prob
+    # cleanup_v0 docstring (dynamics 1): every clean river cell becomes polluted with prob pollution_rate
     assert_rate(int(row[:, clean].sum()), copies * int(clean.sum()), prob)
 
 
 @pytest.mark.parametrize(("polluted", "expected"), [
-    (0, 0.8),   # w = 0.0, at or below restoration 0.2: the full rate spawn_prob_max
-    (2, 0.8),   # w = 0.2, at the restoration threshold: the full rate
-    (3, 0.6),   # w = 0.3: 0.8 * (0.6 - 0.3) / (0.6 - 0.2)
-    (5, 0.2),   # w = 0.5: 0.8 * (0.6 - 0.5) / (0.6 - 0.2)
-    (6, 0.0),   # w = 0.6, at the depletion threshold: nothing grows
+    (0, 0.8),   # w = 0.0, a clean river: the full rate growth_rate
+    (2, 0.6),   # w = 0.2: 0.8 * (1 - 0.2 / 0.8)
+    (4, 0.4),   # w = 0.4: 0.8 * (1 - 0.4 / 0.8)
+    (6, 0.2),   # w = 0.6: 0.8 * (1 - 0.6 / 0.8)
+    (8, 0.0),   # w = 0.8, at the cap: nothing grows
     (9, 0.0),   # w = 0.9, above it: nothing grows
 ])
-def test_orchard_spawn_follows_the_linear_rule(tmp_path, polluted, expected):
+def test_orchard_growth_follows_the_linear_rule(tmp_path, polluted, expected):
     river = "w" * polluted + "~" * (10 - polluted)  # river_cells = 10
     copies = 1000
     game = cleanup.vector_env(copies, layout=write_layout(tmp_path, cleanup_layout(river)), num_agents=1,
-                              view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=0.8,
-                              depletion_threshold=0.6, restoration_threshold=0.2)
+                              view_radius=1, pollution_rate=0.0, growth_rate=0.8, pollution_cap=0.8)
     game.reset(seed=11)
     stay(game)
     orchard = game.interior(game.resource)[:, 3:5, 1:11]  # the two orchard rows, all empty at the start
-    # cleanup_v0 docstring (dynamics 2): spawn_prob_max * clip((depletion - w) / (depletion - restoration),
-    # 0, 1); the expected values beside each case are that formula worked by hand
+    # cleanup_v0 docstring (dynamics 2): growth_rate * max(0, 1 - w / pollution_cap); the expected values
+    # beside each case are that formula worked by hand
     assert_rate(int(orchard.sum()), orchard.size, expected)
 
 
 def test_orchard_uses_the_fraction_after_this_steps_waste(tmp_path):
     game = cleanup.vector_env(50, layout=write_layout(tmp_path, cleanup_layout("~" * 10)), num_agents=1,
-                              view_radius=1, waste_spawn_prob=1.0, spawn_prob_max=1.0,
-                              depletion_threshold=0.4, restoration_threshold=0.0)
+                              view_radius=1, pollution_rate=1.0, growth_rate=1.0, pollution_cap=0.4)
     game.reset(seed=0)
     stay(game)
     # cleanup_v0 docstring (dynamics, "in this order"): waste first (the whole river, prob 1), then the
-    # orchard sees w = 1 >= depletion and grows nothing, although the river was clean at the step's start
+    # orchard sees w = 1 >= the cap and grows nothing, although the river was clean at the step's start
     assert game.waste_fraction().tolist() == [1.0] * 50
     assert not game.interior(game.resource).any()
 
 
 def test_orchard_skips_a_cell_under_an_agent(tmp_path):
     game = cleanup.vector_env(10, layout=write_layout(tmp_path, cleanup_layout("~" * 6)), num_agents=1,
-                              view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=1.0)
+                              view_radius=1, pollution_rate=0.0, growth_rate=1.0)
     game.reset(seed=0)
     game.cell[:, 0] = (3 + game.P) * game.Wp + (2 + game.P)  # stand on the orchard cell at map (3, 2)
     game._place_agents()
@@ -215,21 +213,20 @@ def test_orchard_skips_a_cell_under_an_agent(tmp_path):
 
 
 def test_polluted_river_stops_the_orchard(tmp_path):
-    # 5 of 10 river cells polluted: w = 0.5 > depletion 0.4, and waste only grows while nobody cleans
+    # 5 of 10 river cells polluted: w = 0.5 > the cap 0.4, and waste only grows while nobody cleans
     rows = cleanup_layout("wwwww~~~~~")
     game = cleanup.vector_env(20, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
-                              waste_spawn_prob=0.01, spawn_prob_max=0.5, depletion_threshold=0.4,
-                              restoration_threshold=0.0)
+                              pollution_rate=0.01, growth_rate=0.5, pollution_cap=0.4)
     game.reset(seed=3)
     for _ in range(300):
         stay(game)
-        # cleanup_v0 docstring (dynamics 2): zero growth above the depletion threshold
+        # cleanup_v0 docstring (dynamics 2): zero growth above the cap
         assert not game.interior(game.resource).any()
     assert np.all(game.waste_fraction() >= 0.5)
     # the same map with a clean river and no waste does grow (the check above is not vacuous)
     clean = cleanup.vector_env(20, layout=write_layout(tmp_path, cleanup_layout("~" * 10), "clean.txt"),
-                               num_agents=1, view_radius=1, waste_spawn_prob=0.0, spawn_prob_max=0.5,
-                               depletion_threshold=0.4, restoration_threshold=0.0)
+                               num_agents=1, view_radius=1, pollution_rate=0.0, growth_rate=0.5,
+                               pollution_cap=0.4)
     clean.reset(seed=3)
     stay(clean)
     assert clean.interior(clean.resource).any()
@@ -248,13 +245,18 @@ def test_harvest_defaults_follow_the_references():
     assert p["max_cycles"] == 1000
 
 
-def test_cleanup_threshold_defaults_follow_the_references():
+def test_cleanup_growth_defaults_are_the_documented_ones():
     p = cleanup.vector_env(1).params
-    # REFERENCES.md, public-goods river (Hughes et al. 2018, from memory, low confidence): maximum apple
-    # spawn 0.05, depletion threshold 0.4, restoration threshold 0.0
-    assert p["spawn_prob_max"] == 0.05
-    assert p["depletion_threshold"] == 0.4
-    assert p["restoration_threshold"] == 0.0
+    # our own defaults, no source: the cleanup_v0 docstring (arguments) and docs/sources.md say so
+    assert (p["pollution_rate"], p["growth_rate"], p["pollution_cap"]) == (0.004, 0.04, 0.5)
+
+
+@pytest.mark.parametrize(("old", "new"), [("waste_spawn_prob", "pollution_rate"), ("spawn_prob_max", "growth_rate"),
+                                          ("depletion_threshold", "pollution_cap"),
+                                          ("restoration_threshold", "leave it out")])
+def test_cleanup_refuses_the_earlier_growth_names(old, new):
+    with pytest.raises(ParamError, match=rf"^cleanup_v0: parameter '{old}' is no longer accepted: .*{new}"):
+        cleanup.vector_env(1, **{old: 0.1})
 
 
 # --- episode end (horizon) --------------------------------------------------------------------------------

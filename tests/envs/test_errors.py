@@ -85,8 +85,8 @@ CASES = [
     # unknown parameters, with the nearest valid name suggested -- envs/params.py resolve
     ("unknown-param", lambda t: tiny(regrow_tabel=[0.1]), ParamError,
      r"unknown parameter 'regrow_tabel'; did you mean 'regrow_table'"),
-    ("unknown-param-cleanup", lambda t: tiny(cleanup, waste_spawn_rate=0.1), ParamError,
-     r"unknown parameter 'waste_spawn_rate'; did you mean 'waste_spawn_prob'"),
+    ("unknown-param-cleanup", lambda t: tiny(cleanup, pollution_rat=0.1), ParamError,
+     r"unknown parameter 'pollution_rat'; did you mean 'pollution_rate'"),
     ("unknown-param-no-hint", lambda t: tiny(zzz=1), ParamError, r"unknown parameter 'zzz' \(valid: "),
     # layouts -- envs/layouts.py: a bad layout names the line and column
     ("layout-ragged-short", lambda t: tiny(layout=layout_file(t, RAGGED_SHORT)), LayoutError,
@@ -116,12 +116,12 @@ CASES = [
     ("regrow-table-above-one", lambda t: tiny(regrow_table=[0.0, 1.5]), ParamError,
      r"parameter 'regrow_table'"),
     ("regrow-table-empty", lambda t: tiny(regrow_table=[]), ParamError, r"parameter 'regrow_table' = \[\]"),
-    ("waste-spawn-negative", lambda t: tiny(cleanup, waste_spawn_prob=-0.01), ParamError,
-     r"parameter 'waste_spawn_prob' = -0\.01 is not allowed; expected a number in \[0\.0, 1\.0\]"),
-    ("spawn-prob-max-above-one", lambda t: tiny(cleanup, spawn_prob_max=1.5), ParamError,
-     r"parameter 'spawn_prob_max' = 1\.5 is not allowed"),
-    ("spawn-prob-nan", lambda t: tiny(cleanup, spawn_prob_max=float("nan")), ParamError,
-     r"parameter 'spawn_prob_max' = nan"),
+    ("pollution-rate-negative", lambda t: tiny(cleanup, pollution_rate=-0.01), ParamError,
+     r"parameter 'pollution_rate' = -0\.01 is not allowed; expected a number in \[0\.0, 1\.0\]"),
+    ("growth-rate-above-one", lambda t: tiny(cleanup, growth_rate=1.5), ParamError,
+     r"parameter 'growth_rate' = 1\.5 is not allowed"),
+    ("growth-rate-nan", lambda t: tiny(cleanup, growth_rate=float("nan")), ParamError,
+     r"parameter 'growth_rate' = nan"),
     # view radius
     ("view-radius-zero", lambda t: tiny(view_radius=0), ParamError,
      r"parameter 'view_radius' = 0 is not allowed; expected an integer >= 1"),
@@ -136,12 +136,9 @@ CASES = [
     ("freeze-steps-negative", lambda t: tiny(freeze_steps=-1), ParamError, r"parameter 'freeze_steps' = -1"),
     ("tagging-not-bool", lambda t: tiny(tagging=1), ParamError,
      r"parameter 'tagging' = 1 is not allowed; expected true or false"),
-    # thresholds
-    ("restoration-equals-depletion", lambda t: tiny(cleanup, restoration_threshold=0.4, depletion_threshold=0.4),
-     ParamError, r"parameter 'restoration_threshold' = 0\.4 is not allowed; expected less than "
-                 r"depletion_threshold = 0\.4"),
-    ("restoration-above-depletion", lambda t: tiny(cleanup, restoration_threshold=0.5, depletion_threshold=0.4),
-     ParamError, r"parameter 'restoration_threshold' = 0\.5"),
+    # the pollution cap
+    ("pollution-cap-zero", lambda t: tiny(cleanup, pollution_cap=0.0), ParamError,
+     r"parameter 'pollution_cap' = 0\.0 is not allowed; expected a number in \(0\.0, 1\.0\]"),
     # registry, batching, rendering
     ("unknown-game", lambda t: envs.make("harvest_v1"), ParamError,
      r"unknown game 'harvest_v1'; did you mean 'harvest_v0'"),
@@ -194,7 +191,7 @@ def test_valid_edges_are_accepted(tmp_path):
     tiny(num_agents=4)   # four spawn points
     tiny(tag_width=3, tag_cost=0.0, tagged_penalty=0.0, freeze_steps=0)
     tiny(regrow_table=[0.0, 1.0])
-    tiny(cleanup, waste_spawn_prob=0.0, spawn_prob_max=1.0, restoration_threshold=0.39,
-         depletion_threshold=0.4)
+    tiny(cleanup, pollution_rate=0.0, growth_rate=1.0, pollution_cap=1.0)
+    tiny(cleanup, pollution_cap=1e-6)
     tiny().reset(seed=0)
     tiny().reset(seed=np.int64(3))

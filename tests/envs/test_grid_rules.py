@@ -546,7 +546,7 @@ RIVER = """
 
 def test_clean_beam_removes_waste_within_reach(tmp_path):
     game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, clean_length=3, clean_width=1,
-                    waste_spawn_prob=0.0)
+                    pollution_rate=0.0)
     place(game, 0, 1, 8, facing="left")
     _, rew, _, _, infos = act(game, CLEAN)
     waste = game.interior(game.waste)[0]
@@ -566,7 +566,7 @@ def test_clean_beam_width_and_walls(tmp_path):
     ###########
     """
     game = new_game(tmp_path, layout, module=cleanup, num_agents=1, clean_length=6, clean_width=3,
-                    waste_spawn_prob=0.0)
+                    pollution_rate=0.0)
     place(game, 0, 2, 8, facing="left")
     _, _, _, _, infos = act(game, CLEAN)
     waste = game.interior(game.waste)[0]
@@ -579,7 +579,7 @@ def test_clean_beam_width_and_walls(tmp_path):
 
 def test_clean_and_tag_beams_do_not_mix(tmp_path):
     game = new_game(tmp_path, RIVER, module=cleanup, num_agents=2, clean_length=5, clean_width=1,
-                    waste_spawn_prob=0.0)
+                    pollution_rate=0.0)
     place(game, 0, 1, 8, facing="left")
     place(game, 1, 3, 7)
     act(game, TAG, STAY)
@@ -592,7 +592,7 @@ def test_clean_and_tag_beams_do_not_mix(tmp_path):
 
 def test_clean_with_tagging_false_is_action_five(tmp_path):
     game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, tagging=False, clean_length=2,
-                    clean_width=1, waste_spawn_prob=0.0)
+                    clean_width=1, pollution_rate=0.0)
     place(game, 0, 1, 8, facing="left")
     _, _, _, _, infos = act(game, 5)
     assert infos["waste_removed"][0, 0] == 2  # cleanup_v0 docstring: without tagging clean is 5
@@ -658,7 +658,7 @@ def test_observation_outside_the_map_reads_as_wall(tmp_path):
 
 
 def test_river_and_waste_channels_in_cleanup(tmp_path):
-    game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, view_radius=1, waste_spawn_prob=0.0)
+    game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, view_radius=1, pollution_rate=0.0)
     place(game, 0, 2, 8, facing="left")
     obs, *_ = act(game, STAY)
     o = obs[0, 0]  # window = map rows 1..3, columns 7..9
@@ -670,7 +670,7 @@ def test_river_and_waste_channels_in_cleanup(tmp_path):
 
 def test_harvest_rejects_a_layout_with_a_river():
     # rule stated in the harvest_v0 docstring: the river channel is always 0, so a river map is refused
-    with pytest.raises(LayoutError, match="harvest has no river.*row 2, column 2"):
+    with pytest.raises(LayoutError, match="harvest has no river.*row 2, column 6"):
         harvest.vector_env(1, layout="cleanup_tiny", num_agents=1)
 
 
@@ -827,7 +827,7 @@ def test_per_agent_planes_through_a_freeze(tmp_path):
 
 
 def test_per_agent_state_of_cleanup_shows_river_and_waste(tmp_path):
-    game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, waste_spawn_prob=0.0, spawn_prob_max=0.0)
+    game = new_game(tmp_path, RIVER, module=cleanup, num_agents=1, pollution_rate=0.0, growth_rate=0.0)
     place(game, 0, 2, 8, facing="left")
     act(game, STAY)
     st = game.state()[0]

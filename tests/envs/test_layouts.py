@@ -84,6 +84,41 @@ def test_sizes_grow_from_tiny_to_standard(game):
     assert [len(m.spawn) for m in maps] == sorted(len(m.spawn) for m in maps)
 
 
+def _patch_gaps(layout: Layout) -> tuple[list[int], float]:
+    """Sizes of the orchard patches, and the smallest squared distance between cells of different patches."""
+    labels = layout.patches()
+    cells = np.argwhere(labels >= 0)
+    which = labels[labels >= 0]
+    d2 = ((cells[:, None, :] - cells[None, :, :]) ** 2).sum(axis=-1)
+    apart = which[:, None] != which[None, :]
+    return [int((labels == k).sum()) for k in range(labels.max() + 1)], float(d2[apart].min()) if apart.any() \
+        else float("inf")
+
+
+@pytest.mark.parametrize("name", [n for n in LAYOUTS if n.startswith("harvest")])
+def test_harvest_patches_can_each_be_stripped_bare(name):
+    sizes, gap2 = _patch_gaps(load_layout(name))
+    radius = harvest.vector_env(1).params["regrow_radius"]
+    # harvest_v0 docstring (regrowth): only resources within regrow_radius count, so patches further apart
+    # than that never reseed each other, and a patch stripped bare stays bare
+    assert gap2 > radius ** 2
+    if not name.endswith("tiny"):
+        # envs/layouts.py docstring: patches of varied sizes, one large beside small ones
+        assert len(set(sizes)) >= 4 and max(sizes) >= 3 * min(sizes)
+
+
+@pytest.mark.parametrize("name", [n for n in LAYOUTS if n.startswith("cleanup")])
+def test_cleanup_river_runs_between_two_orchards(name):
+    layout = load_layout(name)
+    sizes, _ = _patch_gaps(layout)
+    cols = np.nonzero(layout.river.any(axis=0))[0]
+    left, right = np.nonzero(layout.orchard.any(axis=0))[0][[0, -1]]
+    # envs/layouts.py docstring: the river winds between an orchard on each bank
+    assert len(sizes) == 2 and sizes[0] == sizes[1]
+    assert left < cols.min() and cols.max() < right
+    assert layout.river.any(axis=1)[1:-1].all()  # it crosses the map from top to bottom
+
+
 @pytest.mark.parametrize(("module", "layout"), [(harvest, "harvest_small"), (cleanup, "cleanup_small")],
                          ids=["harvest", "cleanup"])
 def test_default_layout(module, layout):

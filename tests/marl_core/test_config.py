@@ -201,6 +201,8 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
     ({"env": {"name": "pkg:mod:fn"}}, [], r"^env\.name = 'pkg:mod:fn' is not allowed: .*exactly one colon"),
     ({"env": {"name": "my-pkg:make"}}, [], r"^env\.name = 'my-pkg:make' is not allowed"),
     ({"env": {"name": "gymnasium:"}}, [], r"^env\.name = 'gymnasium:' is not allowed"),
+    ({"env": {"name": "cleanup_v0", "params": {"spawn_prob_max": 0.1}}}, [],
+     r"^env\.params\.spawn_prob_max is no longer accepted: it is now 'growth_rate'$"),
     ({"env": {"params": {"regrow_tabel": [0.1]}}}, [],
      r"^unknown key 'env\.params\.regrow_tabel'; did you mean 'env\.params\.regrow_table'"),
     ({"env": {"params": {"num_agents": 0}}}, [],
