@@ -34,7 +34,7 @@ agent's position, ahead and frozen planes), ``(9, H, W)`` with ``state_layout="s
    with probability ``growth_rate * max(0, 1 - w / pollution_cap)``: the full rate on a clean river, falling
    linearly to zero as the pollution reaches ``pollution_cap``, and nothing at all above the cap.
 
-The idea of a river whose pollution starves an orchard is Hughes et al. 2018's public-goods game; this growth
+The idea of a river whose pollution starves an orchard is Hughes et al. 2018's public-goods game (docs/sources.md, "Cleanup"); this growth
 rule, its three parameters and their defaults are our own. The defaults were chosen by play, not taken from
 a source: an unattended river passes the cap after about 170 steps (1 - 0.996^173 = 0.50), a sixth of a
 default episode; an emptied cell on a clean river regrows after 25 steps on average (1 / 0.04); and on the

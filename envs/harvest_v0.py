@@ -32,7 +32,7 @@ channels with all agents in one anonymous ``agents`` channel (see ``envs.grid``)
 
 **Regrowth.** Each step, an empty orchard cell with no agent on it regrows with probability
 ``regrow_table[min(n, len(regrow_table) - 1)]``, where n is the number of resources within Euclidean
-distance ``regrow_radius`` (the cell itself excluded). The defaults follow Perolat et al. 2017 (from memory:
+distance ``regrow_radius`` (the cell itself excluded). The defaults follow Perolat et al. 2017 (docs/sources.md, "Harvest regrowth"; from memory:
 0 with no resource near, 0.01 with 1–2, 0.05 with 3–4, 0.1 with 5 or more, radius 2).
 
 **Starting state.** Resources on every ``+`` cell of the layout; agents at distinct random spawn points,

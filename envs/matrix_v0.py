@@ -14,7 +14,8 @@ Description
     gives to it for the joint action. With ``max_cycles = 1`` this is the one-shot game; with more rounds it
     is the repeated game, in which agents see the last joint action and can answer it.
 
-    Bundled tables (``game``); action 0 is the cooperative choice wherever the game has one:
+    Bundled tables (``game``); action 0 is the cooperative choice wherever the game has one (sources and
+    what is from memory: docs/sources.md, "Matrix games"):
 
     ``prisoners_dilemma``  actions ``cooperate``, ``defect``. T, R, P, S = 5, 3, 1, 0 (Axelrod 1984,
                            "The Evolution of Cooperation"). Mutual defection is the only Nash equilibrium of

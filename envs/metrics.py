@@ -1,10 +1,10 @@
 """Social outcome metrics of an episode: efficiency, equality, sustainability and peace.
 
 The four measures of Perolat et al. 2017 ("A multi-agent reinforcement learning model of common-pool resource
-appropriation", NeurIPS 2017), written as pure numpy functions over what any env and any learner can record:
-per-step rewards ``rewards: (T, N)`` and per-step tagged-out flags ``tagged_out: (T, N)`` (T time steps,
-N agents). ``social_outcomes_batch`` takes ``(T, B, N)`` arrays from a batched env and returns one value per
-copy; the single-episode functions run the same code with B = 1.
+appropriation", NeurIPS 2017; docs/sources.md, "Social outcome metrics"), written as pure numpy functions over
+what any env and any learner can record: per-step rewards ``rewards: (T, N)`` and per-step tagged-out flags
+``tagged_out: (T, N)`` (T time steps, N agents). ``social_outcomes_batch`` takes ``(T, B, N)`` arrays from a
+batched env and returns one value per copy; the single-episode functions run the same code with B = 1.
 
 With the per-agent return R_i = sum_t r_t^i:
 
@@ -208,6 +208,8 @@ def peace(tagged_out: Any) -> float:
 
 def gini(values: Any) -> float | np.ndarray:
     """Gini coefficient G = sum_i sum_j |x_i - x_j| / (2 n^2 mean) over the last axis.
+
+    The formula and its sorted form are MathWorld's (docs/sources.md, "Gini coefficient").
 
     0 when every value is equal; NaN when the values differ and their sum is <= 0. Negative values are used
     as given (G can then exceed 1).

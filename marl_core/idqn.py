@@ -5,7 +5,8 @@ Per agent: a Q-network (or one shared network with an agent-id input), a target 
 clipping (Mnih et al. 2015). Switches, each on or off independently: ``double`` (van Hasselt et al. 2016),
 ``dueling`` (Wang et al. 2016), ``n_step`` returns (computed by the replay) and ``prioritized`` replay
 (Schaul et al. 2016; the replay keeps the priorities, this learner reports |TD error| per transition).
-The arithmetic lives in :mod:`marl_core.targets`.
+The arithmetic lives in :mod:`marl_core.targets`. Sources: docs/sources.md, "DQN";
+docs/sources.md, "Double DQN"; docs/sources.md, "Dueling networks"; docs/sources.md, "Prioritized replay".
 """
 
 from __future__ import annotations

@@ -10,6 +10,9 @@ and returns one value per agent. ``critic: shared`` is one network with a value 
 are Polyak-averaged copies. At evaluation, and in any saved policy, the actors act alone from local
 observations.
 
+Sources: docs/sources.md, "MADDPG"; docs/sources.md, "Gumbel-softmax";
+docs/sources.md, "Soft target updates".
+
 Choices where the paper leaves room (stated so results can be read): the target action of each agent is
 the greedy one-hot of its target actor; exploration samples from the actor's softmax mixed with uniform
 random actions at rate ``explore_eps`` (a linear schedule); a small penalty on squared logits

@@ -1,6 +1,7 @@
 """The arithmetic of the updates as pure functions of tensors, testable with hand-made numbers.
 
 Shapes use K for the batch and N for agents; every function works on any leading shape unless noted.
+Each formula's source has an entry in docs/sources.md (e.g. docs/sources.md, "DQN").
 """
 
 from __future__ import annotations

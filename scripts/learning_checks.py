@@ -10,7 +10,8 @@ interval of the mean) the learned figure and every non-learning team's (random, 
 played on the same episodes. ``pass`` says whether the check's bar holds:
 
 * ``cartpole``: independent DQN on gymnasium's CartPole-v1, 100 evaluation episodes per seed; bar: the IQM
-  over seeds of the mean return reaches 475, ``gymnasium.spec("CartPole-v1").reward_threshold``.
+  over seeds of the mean return reaches 475, ``gymnasium.spec("CartPole-v1").reward_threshold``
+  (docs/sources.md, "Gymnasium registry values").
 * ``quickstart``: ``configs/harvest_idqn.yaml``; bar: the median efficiency beats the strongest non-learning
   team's median.
 * ``cleanup``: ``configs/cleanup_idqn.yaml``; bar: the median efficiency beats the ``nobody_cleans`` team's.

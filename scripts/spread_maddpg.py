@@ -8,7 +8,7 @@ steps: the team's mean return per agent, the mean over steps of the summed dista
 its nearest agent, and the number of agent-agent collisions (pairs in contact, counted per step). A uniformly
 random team, the no-op team (action 0: no action) and the ``landmark_walk`` heuristic (agent i walks to
 landmark i, ``marl_core.baselines``) are measured the same way. Lowe et al. 2017 report (appendix, from
-memory, low confidence; their definitions may differ from ours) an average distance of 1.767 for MADDPG against 1.858 for DDPG, and
+memory, low confidence, docs/sources.md, "MADDPG"; their definitions may differ from ours) an average distance of 1.767 for MADDPG against 1.858 for DDPG, and
 0.209 against 0.375 collisions: read them as orders of magnitude, not as a pass mark. This is a script,
 not a test; the CI test trains a shorter budget over 3 seeds and checks that MADDPG beats the no-op team.
 """

@@ -39,6 +39,10 @@ Conventions shared by every function:
 
 Only numpy and scipy are used (scipy is imported inside the functions that need it); this module does not
 import torch or matplotlib.
+
+Sources: docs/sources.md, "Interquartile mean and intervals" (IQM, bootstrap, probability of improvement);
+docs/sources.md, "Student t / Welch intervals" (the t, trimmed-mean t and Welch intervals); and
+docs/sources.md, "Rank tests and Holm's correction" (Mann–Whitney U, Holm).
 """
 
 from __future__ import annotations

@@ -236,18 +236,19 @@ def test_polluted_river_stops_the_orchard(tmp_path):
 
 def test_harvest_defaults_follow_the_references():
     p = harvest.vector_env(1).params
-    # REFERENCES.md, commons regrowth (Perolat et al. 2017, from memory): 0 with no resource within
+    # docs/sources.md, "Harvest regrowth" (Perolat et al. 2017, from memory): 0 with no resource within
     # radius 2, 0.01 with 1-2, 0.05 with 3-4, 0.1 with 5 or more
     assert p["regrow_radius"] == 2
     assert p["regrow_table"] == [0.0, 0.01, 0.01, 0.05, 0.05, 0.1]
-    # REFERENCES.md (Perolat et al. 2017, from memory): a tagged agent is removed for 25 steps; 1000 steps
+    # docs/sources.md, "Harvest regrowth" (Perolat et al. 2017, from memory): a tagged agent is removed for
+    # 25 steps; 1000 steps
     assert p["freeze_steps"] == 25
     assert p["max_cycles"] == 1000
 
 
 def test_cleanup_growth_defaults_are_the_documented_ones():
     p = cleanup.vector_env(1).params
-    # our own defaults, no source: the cleanup_v0 docstring (arguments) and docs/sources.md say so
+    # our own defaults, no source: the cleanup_v0 docstring (arguments) and docs/sources.md, "Cleanup" say so
     assert (p["pollution_rate"], p["growth_rate"], p["pollution_cap"]) == (0.004, 0.04, 0.5)
 
 

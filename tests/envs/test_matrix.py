@@ -53,9 +53,11 @@ def test_prisoners_dilemma_action_names_and_dtype():
 
 def test_prisoners_dilemma_unique_nash_is_mutual_defection():
     table = matrix.vector_env(1, game="prisoners_dilemma").payoff_table
-    # REFERENCES.md (common textbook fact): mutual defection is the unique Nash equilibrium of the one-shot PD
+    # common textbook fact (docs/sources.md, "Matrix games"): mutual defection is the unique Nash equilibrium
+    # of the one-shot PD
     assert pure_nash(table) == [(1, 1)]
-    # REFERENCES.md (common textbook fact): mutual cooperation pays both more than mutual defection
+    # common textbook fact (docs/sources.md, "Matrix games"): mutual cooperation pays both more than mutual
+    # defection
     assert np.all(table[0, 0] > table[1, 1])
 
 
@@ -260,7 +262,8 @@ def test_frozen_info_feeds_the_peace_metric():
         rewards.append(r)
         frozen.append(info["frozen"])
     out = social_outcomes_batch(np.stack(rewards), np.stack(frozen))
-    # REFERENCES.md: P = N when nobody is tagged out; Axelrod 1984: P = 1 each per round of mutual defection
+    # docs/sources.md, "Social outcome metrics": peace = N when nobody is tagged out; Axelrod 1984
+    # (docs/sources.md, "Matrix games"): P = 1 each per round of mutual defection
     np.testing.assert_allclose(out["peace"], 2.0)
     np.testing.assert_allclose(out["efficiency"], 2.0)
 

@@ -32,12 +32,12 @@ def spread_over_time(returns, steps: int = 4) -> np.ndarray:
     return np.repeat(r[None, :] / steps, steps, axis=0)
 
 
-# --- equality: worked examples of REFERENCES.md (Perolat et al. 2017) -------------------------------------
+# --- equality: worked examples (Perolat et al. 2017; docs/sources.md, "Social outcome metrics") ---------
 
 @pytest.mark.parametrize(("returns", "expected"), [
-    ((1, 1, 1, 1), 1.0),          # REFERENCES.md, equality worked value (1,1,1,1) -> 1
-    ((0, 0, 0, 1), 0.25),         # REFERENCES.md, equality worked value (0,0,0,1) -> 0.25
-    ((1, 2, 3, 4, 5), 11 / 15),   # REFERENCES.md, equality worked value (1,2,3,4,5) -> 11/15
+    ((1, 1, 1, 1), 1.0),          # docs/sources.md, "Social outcome metrics": (1,1,1,1) -> 1
+    ((0, 0, 0, 1), 0.25),         # docs/sources.md, "Social outcome metrics": (0,0,0,1) -> 0.25
+    ((1, 2, 3, 4, 5), 11 / 15),   # docs/sources.md, "Social outcome metrics": (1,2,3,4,5) -> 11/15
 ], ids=["equal", "one-takes-all", "one-to-five"])
 def test_equality_worked_examples(returns, expected):
     assert equality(one_step(returns)) == pytest.approx(expected)
@@ -46,19 +46,19 @@ def test_equality_worked_examples(returns, expected):
 
 def test_equality_is_one_minus_gini():
     r = np.array([[0.0, 2.0, 1.0], [3.0, 0.0, 1.0]])
-    # REFERENCES.md: E = 1 - Gini of the returns
+    # Perolat et al. 2017 (docs/sources.md, "Social outcome metrics"): E = 1 - Gini of the returns
     assert equality(r) == pytest.approx(1.0 - gini(r.sum(axis=0)))
 
 
-# --- Gini: MathWorld examples of REFERENCES.md ------------------------------------------------------------
+# --- Gini: examples from the MathWorld formula (docs/sources.md, "Gini coefficient") -------------------
 
 @pytest.mark.parametrize(("values", "expected"), [
-    ((1, 1, 1, 1), 0.0),              # REFERENCES.md, MathWorld "Gini Coefficient": (1,1,1,1) -> 0
-    ((0, 0, 0, 1), 0.75),             # REFERENCES.md, MathWorld: (0,0,0,1) -> 0.75
-    ((0, 100), 0.5),                  # REFERENCES.md, MathWorld: (0,100) -> 0.5
-    ((1, 2, 3, 4, 5), 4 / 15),        # REFERENCES.md, MathWorld: (1,2,3,4,5) -> 4/15
-    ((2, 4, 6, 8), 0.25),             # REFERENCES.md, MathWorld: (2,4,6,8) -> 0.25
-    ((20, 30, 40, 50, 60), 0.2),      # REFERENCES.md, MathWorld: (20,30,40,50,60) -> 0.2
+    ((1, 1, 1, 1), 0.0),              # MathWorld (docs/sources.md, "Gini coefficient"): (1,1,1,1) -> 0
+    ((0, 0, 0, 1), 0.75),             # MathWorld (docs/sources.md, "Gini coefficient"): (0,0,0,1) -> 0.75
+    ((0, 100), 0.5),                  # MathWorld (docs/sources.md, "Gini coefficient"): (0,100) -> 0.5
+    ((1, 2, 3, 4, 5), 4 / 15),        # MathWorld (docs/sources.md, "Gini coefficient"): (1,2,3,4,5) -> 4/15
+    ((2, 4, 6, 8), 0.25),             # MathWorld (docs/sources.md, "Gini coefficient"): (2,4,6,8) -> 0.25
+    ((20, 30, 40, 50, 60), 0.2),      # MathWorld (docs/sources.md, "Gini coefficient"): (20,30,40,50,60) -> 0.2
 ], ids=["equal", "one-takes-all", "two", "one-to-five", "evens", "tens"])
 def test_gini_mathworld_examples(values, expected):
     assert gini(values) == pytest.approx(expected)
@@ -66,14 +66,14 @@ def test_gini_mathworld_examples(values, expected):
 
 @pytest.mark.parametrize("n", range(1, 13))
 def test_gini_closed_form_of_one_to_n(n):
-    # REFERENCES.md, MathWorld closed form G(1..n) = (n - 1) / (3n)
+    # MathWorld closed form G(1..n) = (n - 1) / (3n) (docs/sources.md, "Gini coefficient")
     assert gini(np.arange(1, n + 1)) == pytest.approx((n - 1) / (3 * n))
 
 
 def test_gini_matches_the_pairwise_formula():
     rng = np.random.default_rng(0)
     x = rng.uniform(0, 10, size=7)
-    # REFERENCES.md, MathWorld pairwise form G = sum_i sum_j |x_i - x_j| / (2 n^2 mean)
+    # MathWorld pairwise form G = sum_i sum_j |x_i - x_j| / (2 n^2 mean) (docs/sources.md, "Gini coefficient")
     pairwise = np.abs(x[:, None] - x[None, :]).sum() / (2 * x.size ** 2 * x.mean())
     assert gini(x) == pytest.approx(pairwise)
 
@@ -88,7 +88,7 @@ def test_gini_over_the_last_axis():
     g = gini(np.array([[1, 1, 1, 1], [0, 0, 0, 1], [2, 4, 6, 8]]))
     assert isinstance(g, np.ndarray)
     assert g.shape == (3,)
-    # REFERENCES.md, MathWorld examples (1,1,1,1) -> 0, (0,0,0,1) -> 0.75, (2,4,6,8) -> 0.25
+    # MathWorld (docs/sources.md, "Gini coefficient"): (1,1,1,1) -> 0, (0,0,0,1) -> 0.75, (2,4,6,8) -> 0.25
     np.testing.assert_allclose(g, [0.0, 0.75, 0.25])
 
 
@@ -96,25 +96,28 @@ def test_gini_over_the_last_axis():
 
 def test_efficiency_hand_computed():
     r = np.array([[1.0, 2.0], [0.0, 3.0]])
-    # hand-computed from the formula in REFERENCES.md: U = (1 + 2 + 0 + 3) / T = 6 / 2
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics"):
+    # U = (1 + 2 + 0 + 3) / T = 6 / 2
     assert efficiency(r) == pytest.approx(3.0)
 
 
 def test_efficiency_counts_negative_rewards():
     r = np.array([[1.0, -1.0], [2.0, 0.0], [0.0, 0.0]])
-    # hand-computed from the formula in REFERENCES.md: U = (1 - 1 + 2) / 3
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics"): U = (1 - 1 + 2) / 3
     assert efficiency(r) == pytest.approx(2 / 3)
 
 
 def test_sustainability_hand_computed():
     r = np.array([[1.0, 0.0], [0.0, 0.0], [1.0, 2.0]])
-    # hand-computed from the formula in REFERENCES.md, 1-based steps: t_0 = (1 + 3) / 2 = 2, t_1 = 3, S = 2.5
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics"), 1-based steps:
+    # t_0 = (1 + 3) / 2 = 2, t_1 = 3, S = 2.5
     assert sustainability(r) == pytest.approx(2.5)
 
 
 def test_sustainability_ignores_size_and_non_positive_rewards():
     r = np.array([[5.0, -1.0], [0.0, 1.0], [1.0, 0.0], [-2.0, 1.0]])
-    # hand-computed from the formula in REFERENCES.md, 1-based steps, positive rewards counted once each:
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics"), 1-based steps, positive
+    # rewards counted once each:
     # t_0 = (1 + 3) / 2 = 2, t_1 = (2 + 4) / 2 = 3, S = 2.5
     assert sustainability(r) == pytest.approx(2.5)
 
@@ -137,12 +140,14 @@ def test_sustainability_of_one_step_is_one():
 
 def test_peace_hand_computed():
     tagged = np.array([[0, 1], [0, 1], [0, 0]], dtype=bool)
-    # hand-computed from the formula in REFERENCES.md: P = (N T - 2) / T = (6 - 2) / 3
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics"):
+    # P = (N T - 2) / T = (6 - 2) / 3
     assert peace(tagged) == pytest.approx(4 / 3)
 
 
 def test_peace_bounds():
-    # REFERENCES.md: P lies in [0, N]; N when nobody is tagged, 0 when everybody always is
+    # docs/sources.md, "Social outcome metrics": P lies in [0, N]; N when nobody is tagged, 0 when
+    # everybody always is
     assert peace(np.zeros((4, 3), dtype=bool)) == 3.0
     assert peace(np.ones((4, 3), dtype=int)) == 0.0
 
@@ -173,7 +178,7 @@ def test_equality_is_nan_for_unequal_returns_with_non_positive_sum(returns):
 
 
 def test_equality_with_a_negative_return_and_positive_sum():
-    # hand-computed from the formula in REFERENCES.md on returns as given:
+    # hand-computed from the formula (docs/sources.md, "Social outcome metrics") on returns as given:
     # (-1, 3): sum |R_i - R_j| = 8, 2 N sum R = 8 -> E = 0;  (-2, 4): 12 / 8 -> E = -0.5
     assert equality(one_step((-1, 3))) == pytest.approx(0.0)
     assert equality(one_step((-2, 4))) == pytest.approx(-0.5)
@@ -194,7 +199,7 @@ def test_social_outcomes_hand_computed():
     out = social_outcomes(rewards, tagged)
     assert set(out) == set(METRIC_NAMES) == {"efficiency", "equality", "sustainability", "peace"}
     assert all(isinstance(v, float) for v in out.values())
-    # hand-computed from the formulas in REFERENCES.md: returns (2, 2)
+    # hand-computed from the formulas (docs/sources.md, "Social outcome metrics"): returns (2, 2)
     assert out["efficiency"] == pytest.approx(4 / 3)     # (2 + 2) / 3
     assert out["equality"] == pytest.approx(1.0)         # equal returns
     assert out["sustainability"] == pytest.approx(2.5)   # t = (2, 3), 1-based

@@ -276,7 +276,8 @@ def test_each_agent_acts_from_its_own_observation(kind, share):
 
 # ---------------------------------------------------------------------------------------------- IDQN loss
 def _huber(x: torch.Tensor) -> torch.Tensor:
-    # Huber with delta 1 (Mnih et al. 2015 TD clipping, REFERENCES), written out here rather than imported
+    # Huber with delta 1 (Mnih et al. 2015 TD clipping; docs/sources.md, "DQN"), written out here rather than
+    # imported
     return torch.where(x.abs() <= 1, 0.5 * x ** 2, x.abs() - 0.5)
 
 

@@ -1,7 +1,7 @@
 """The evaluation statistics of ``marl_core.ablation.stats``.
 
-Every expected value names its source beside it: Agarwal et al. 2021 / REFERENCES.md, a named worked example,
-"hand-computed from the formula", or the scipy / statsmodels function the result is held against. The
+Every expected value names its source beside it: a paper (with its entry in docs/sources.md), a named worked
+example, "hand-computed from the formula", or the scipy / statsmodels function the result is held against. The
 coverage tests measure, by simulation with fixed seeds, how often each interval the report prints contains the
 true value.
 """
@@ -43,7 +43,8 @@ from marl_core.errors import ConfigError
 # ------------------------------------------------------------------------------------------------------ IQM
 def test_iqm_worked_example():
     x = [5, 8, 4, 38, 8, 6, 9, 7, 7, 3, 1, 6]
-    # 6.5: Wikipedia "Interquartile mean" worked example, from memory (REFERENCES.md, Agarwal et al. 2021 section);
+    # 6.5: Wikipedia "Interquartile mean" worked example, from memory
+    # (docs/sources.md, "Interquartile mean and intervals");
     # hand-check: sorted middle six are 5, 6, 6, 7, 7, 8 -> 39 / 6.
     assert iqm(x) == pytest.approx(6.5)
 
@@ -463,7 +464,9 @@ def test_summarize():
     assert s["iqm_ci"] == iqm_interval(x)  # documented: summarize's IQM interval is the trimmed-mean t interval
     assert s["n"] == 12  # hand-counted: the NaN is dropped
     assert s["mean"] == pytest.approx(102 / 12)  # hand-computed: sum is 102
-    assert s["iqm"] == pytest.approx(6.5)  # Wikipedia "Interquartile mean", from memory (REFERENCES.md)
+    # Wikipedia "Interquartile mean" worked example, from memory
+    # (docs/sources.md, "Interquartile mean and intervals")
+    assert s["iqm"] == pytest.approx(6.5)
     assert s["std"] == pytest.approx(np.std(np.array(x[:-1], dtype=float), ddof=1))  # numpy std, ddof=1
     assert s["mean_ci"][0] <= s["mean"] <= s["mean_ci"][1]
     assert s["iqm_ci"][0] <= s["iqm"] <= s["iqm_ci"][1]

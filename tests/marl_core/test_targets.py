@@ -101,7 +101,7 @@ def test_huber_values_at_half_and_three():
 def test_huber_gradient_is_the_td_error_clipped_to_one():
     x = torch.tensor([-5.0, -3.0, -1.0, -0.5, 0.0, 0.25, 0.5, 1.0, 3.0, 40.0], requires_grad=True)
     huber(x).sum().backward()
-    # Mnih et al. 2015: the TD error term clipped to [-1, 1] (== Huber with delta 1, REFERENCES)
+    # Mnih et al. 2015: the TD error term clipped to [-1, 1] (== Huber with delta 1; docs/sources.md, "DQN")
     expected = [-1.0, -1.0, -1.0, -0.5, 0.0, 0.25, 0.5, 1.0, 1.0, 1.0]  # hand-computed: clamp(x, -1, 1)
     assert x.grad.tolist() == pytest.approx(expected)
 
