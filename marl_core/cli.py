@@ -11,18 +11,29 @@ Commands:
     marl-core demo [--out DIR] [--seed N] [--agents N] [--steps N] [--no-gif]
 
 A user mistake (a bad option, config key, game parameter, run directory or checkpoint) prints one line on
-stderr and exits with status 2, and nothing is written into an existing run directory.
+stderr and exits with status 2, and nothing is written into an existing run directory. Ctrl-C prints one
+line (for ``train``: the checkpoint to resume from and the command that resumes) and exits with status 130.
+
+Progress of ``train``: a progress bar when stdout is a terminal; otherwise (piped, redirected, or
+``--quiet`` / ``log.progress: false``) one plain line per evaluation. The hints printed ("resume with: ...",
+"TensorBoard: ...") name the commands as this shell can run them (:func:`marl_core.hints.command`:
+``marl-core`` with the venv active, ``.venv/bin/marl-core`` without). A team of one agent (e.g. gymnasium's
+CartPole) is shown its returns only: the social metrics need a team (``summary.json`` keeps every key).
 """
 
 from __future__ import annotations
 
 import argparse
 import json
+import os
+import shutil
 import sys
+import textwrap
 from collections.abc import Sequence
 
 from envs.errors import EnvError
 from marl_core.errors import MarlError
+from marl_core.hints import command
 
 __all__ = ["main"]
 
@@ -51,7 +62,8 @@ def _parser() -> argparse.ArgumentParser:
     t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key, e.g. --set learner.lr=1e-3 (repeatable)")
     t.add_argument("--resume", metavar="RUN_DIR", help="continue a run from its last checkpoint")
-    t.add_argument("--quiet", action="store_true", help="no progress bar; one plain line per evaluation")
+    t.add_argument("--quiet", action="store_true", help="no progress bar; one plain line per evaluation (also "
+                   "the default when stdout is not a terminal)")
     v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off")
     v.add_argument("run_dir")
     v.add_argument("--episodes", type=int, help="episodes to play, by the learned team and by every baseline "
@@ -107,11 +119,47 @@ def _envs(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(table, indent=2))
         return 0
-    for game, params in table.items():
+    rows = {game: [(p["name"], p["type"], _default_text(p["default"]), p["doc"]) for p in params]
+            for game, params in table.items()}
+    widths = _widths([r for game_rows in rows.values() for r in game_rows],
+                     shutil.get_terminal_size((100, 24)).columns, indent=2)
+    for game, game_rows in rows.items():
         print(game)
-        for p in params:
-            print(f"  {p['name']:<22} {p['type']:<6} {str(p['default']):<32} {p['doc']}")
+        print(_columns(game_rows, widths, indent=2))
     return 0
+
+
+def _default_text(value) -> str:
+    """A default as the table shows it: lists as comma-separated numbers (the README's spelling)."""
+    if isinstance(value, list):
+        return ", ".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value)
+    return str(value)
+
+
+_GAP = 2  # spaces between two columns
+
+
+def _widths(rows: list[tuple[str, ...]], width: int, indent: int = 0, max_cell: int = 24) -> list[int]:
+    """Column widths that fit ``width`` characters where they can: every column but the last is as wide as
+    its longest cell, capped at ``max_cell`` (a longer cell wraps within its column); the last column gets
+    what is left (at least 30 characters)."""
+    ncols = len(rows[0])
+    widths = [min(max(len(r[c]) for r in rows), max_cell) for c in range(ncols - 1)]
+    return [*widths, max(30, width - indent - sum(widths) - _GAP * (ncols - 1))]
+
+
+def _columns(rows: list[tuple[str, ...]], widths: list[int], indent: int = 0) -> str:
+    """``rows`` in columns of ``widths``; a cell longer than its column wraps onto continuation lines in that
+    column, so no cell runs into the next one."""
+    gap = _GAP
+    lines = []
+    for row in rows:
+        cells = [textwrap.wrap(text, w, break_long_words=True, break_on_hyphens=False) or [""]
+                 for text, w in zip(row, widths)]
+        for k in range(max(len(c) for c in cells)):
+            parts = [(c[k] if k < len(c) else "").ljust(w) for c, w in zip(cells, widths)]
+            lines.append((" " * indent + (" " * gap).join(parts)).rstrip())
+    return "\n".join(lines)
 
 
 def _fmt(x) -> str:
@@ -119,23 +167,57 @@ def _fmt(x) -> str:
     return "n/a" if x is None or x != x or x in (float("inf"), float("-inf")) else f"{x:.3f}"
 
 
+SOCIAL = ("efficiency", "equality", "sustainability", "peace")
+
+
+def _single_agent(result: dict) -> bool:
+    """A team of one agent (e.g. a gymnasium env): the social metrics say nothing about it."""
+    return len(result.get("returns") or {}) == 1
+
+
 def _table(summary: dict) -> str:
-    """The learned team beside every baseline team (columns), one row per metric."""
+    """The learned team beside every baseline team (columns), one row per metric; a team of one agent
+    gets its return only (and a note why)."""
+    from marl_core.baselines import KNOWN
+
     teams = summary.get("baselines") or {"random": summary.get("random") or {}}
-    teams = {n: teams[n] for n in sorted(teams, key=lambda n: n != "random")}  # random first, then as given
+    # random, noop, then the scripted teams: one order whether the summary is fresh or read from JSON
+    order = {n: i for i, n in enumerate(KNOWN)}
+    teams = {n: teams[n] for n in sorted(teams, key=lambda n: (order.get(n, len(order)), n))}
     width = max(10, *(len(n) + 2 for n in teams))
+    single = _single_agent(summary)
+    rows = [("return", "return_mean")] if single else [(k, k) for k in ("return_mean", *SOCIAL)]
     lines = [f"{'':<16}{'learned':>{width}}" + "".join(f"{n:>{width}}" for n in teams)]
-    for key in ("return_mean", "efficiency", "equality", "sustainability", "peace"):
-        lines.append(f"{key:<16}{_fmt(summary.get(key)):>{width}}"
+    for label, key in rows:
+        lines.append(f"{label:<16}{_fmt(summary.get(key)):>{width}}"
                      + "".join(f"{_fmt(teams[n].get(key)):>{width}}" for n in teams))
+    if single:
+        lines.append("(one agent: the social metrics need a team and are not shown; summary.json keeps them)")
     return "\n".join(lines)
 
 
+def _clock(seconds: float) -> str:
+    """Elapsed time as m:ss (h:mm:ss past an hour)."""
+    s = int(seconds)
+    return f"{s // 3600}:{s % 3600 // 60:02d}:{s % 60:02d}" if s >= 3600 else f"{s // 60}:{s % 60:02d}"
+
+
+def _eval_line(step: int, total: int, elapsed: float, rate: float, last: dict) -> str:
+    """One plain progress line: steps, elapsed time, steps/s and the evaluation's key metrics."""
+    metrics = f"return {_fmt(last.get('return_mean'))}"
+    if not _single_agent(last):
+        metrics += "".join(f"  {k} {_fmt(last.get(k))}" for k in SOCIAL)
+    return f"step {step}/{total}  elapsed {_clock(elapsed)}  {rate:,.0f} steps/s  eval {metrics}"
+
+
 class _Progress:
-    """A rich progress bar (steps, steps/s, ETA, latest evaluation return) or plain lines when quiet."""
+    """A rich progress bar (steps, steps/s, ETA, latest evaluation return) on a terminal; one plain line per
+    evaluation when quiet or when stdout is not a terminal (piped or redirected: a bar would show nothing
+    until the end)."""
 
     def __init__(self, quiet: bool):
-        self.quiet, self.bar, self.task, self.last = quiet, None, None, None
+        self.quiet = quiet or not _isatty(sys.stdout)
+        self.bar, self.task, self.last = None, None, None
         self.s0: int | None = None
         self.t0 = 0.0
 
@@ -159,24 +241,31 @@ class _Progress:
     def __call__(self, step: int, total: int, last: dict | None) -> None:
         import time
 
-        if self.s0 is None:
-            self.s0, self.t0 = step, time.perf_counter()
+        if self.s0 is None:  # the first call: the start of the loop (train.py), with the run's last evaluation
+            self.s0, self.t0, self.last = step, time.perf_counter(), last
             if not self.quiet:
                 self._start()
-        rate = (step - self.s0) / max(time.perf_counter() - self.t0, 1e-9)
+        elapsed = time.perf_counter() - self.t0
+        rate = (step - self.s0) / max(elapsed, 1e-9)
         ret = _fmt(last["return_mean"]) if last else "-"
         if self.bar is not None:
             if self.task is None:
                 self.task = self.bar.add_task("train", total=total, rate="-", ret="-")
             self.bar.update(self.task, completed=step, rate=f"{rate:,.0f}", ret=ret)
-        elif last is not None and last is not self.last:
-            print(f"step {step}/{total}  {rate:,.0f} steps/s  eval return {ret}  "
-                  f"efficiency {_fmt(last['efficiency'])}", flush=True)
+        elif last is not None and last is not self.last:  # a new evaluation
+            print(_eval_line(step, total, elapsed, rate, last), flush=True)
         self.last = last
 
     def __exit__(self, *exc):
         if self.bar is not None:
             self.bar.__exit__(*exc)
+
+
+def _isatty(stream) -> bool:
+    try:
+        return stream.isatty()
+    except (AttributeError, ValueError):
+        return False
 
 
 def _train(args: argparse.Namespace) -> int:
@@ -186,9 +275,16 @@ def _train(args: argparse.Namespace) -> int:
         if args.config or args.out or args.set:
             raise UsageError("train --resume RUN_DIR takes no CONFIG, --out or --set (the run keeps its config)")
         out = args.resume
-        quiet = args.quiet or not train.load_run(out).log.progress  # log.progress: false = quiet
-        with _Progress(quiet) as bar:
-            summary = train.resume(out, progress=bar)
+        cfg = train.load_run(out)
+        finished = train.finished_summary(out)
+        with _Interrupted(out), _Progress(args.quiet or not cfg.log.progress) as bar:  # progress: false = quiet
+            summary = train.resume(out, progress=bar)  # checks the checkpoint even when the run is finished
+        if finished is not None:
+            print(f"run: {out} is already finished: {summary['env_steps']} of {cfg.train.total_steps} env "
+                  f"steps (train.total_steps), {summary['episodes']} episodes; nothing to resume")
+            print(_table(summary))
+            print(f"summary: {out}/summary.json   evaluate it again: {command()} evaluate {out}")
+            return 0
     else:
         if not args.config or not args.out:
             raise UsageError("train needs CONFIG and --out RUN_DIR (or --resume RUN_DIR)")
@@ -196,13 +292,57 @@ def _train(args: argparse.Namespace) -> int:
 
         cfg = load_config(args.config, args.set)
         out = args.out
-        with _Progress(args.quiet or not cfg.log.progress) as bar:
+        with _Interrupted(out), _Progress(args.quiet or not cfg.log.progress) as bar:
             summary = train.run(cfg, out, progress=bar)
     print(f"run: {out}  ({summary['env_steps']} env steps, {summary['episodes']} episodes)")
     print(_table(summary))
     print(f"summary: {out}/summary.json   policies: {out}/policies/")
-    print(f"TensorBoard: tensorboard --logdir {out}")
+    print(f"TensorBoard: {command('tensorboard')} --logdir {out}")
     return 0
+
+
+class _Interrupted:
+    """Turns Ctrl-C during training into :class:`_Exit` 130 with one line: the checkpoint to resume from
+    and the command that resumes (or, with no checkpoint yet, what to do instead)."""
+
+    def __init__(self, out: str):
+        self.out = out
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, err, tb):
+        if kind is None or not issubclass(kind, KeyboardInterrupt):
+            return False
+        from pathlib import Path
+
+        from marl_core.train import TrainingInterrupted
+
+        out = self.out
+        if isinstance(err, TrainingInterrupted):
+            head = f"marl-core: interrupted at step {err.env_steps} of {err.total_steps}"
+            ckpt, steps, saved = err.checkpoint, err.checkpoint_steps, err.saved
+        else:  # before the loop (building envs, the baselines) or after it (writing the summary)
+            path = Path(out) / "checkpoints" / "last.pt"
+            head, ckpt, steps, saved = "marl-core: interrupted", path if path.is_file() else None, None, False
+        if ckpt is not None:
+            line = (f"{head}; checkpoint {'saved' if saved else 'last'}: {ckpt}"
+                    + (f" (step {steps})" if steps is not None else "")
+                    + f"; resume with: {command()} train --resume {out}")
+        elif Path(out).exists():
+            line = f"{head} before the first checkpoint, so there is nothing to resume: remove {out} and start again"
+        else:
+            line = f"{head} before anything was written; start again"
+        print(line, file=sys.stderr, flush=True)
+        raise _Exit(130)
+
+
+class _Exit(Exception):
+    """Leave ``main`` with this status (the message is already printed)."""
+
+    def __init__(self, status: int):
+        super().__init__(status)
+        self.status = status
 
 
 def _evaluate(args: argparse.Namespace) -> int:
@@ -241,8 +381,9 @@ def _ablate(args: argparse.Namespace) -> int:
                     retry_failed=args.retry_failed, progress=progress)
     print(f"sweep: {args.out}  done {counts.get('done', 0)}, failed {counts.get('failed', 0)}")
     if counts.get("failed"):
-        print(f"failed runs: marl-core status {args.out}; rerun them with --retry-failed")
-    print(f"report: marl-core report {args.out}   TensorBoard HParams: tensorboard --logdir {args.out}/runs")
+        print(f"failed runs: {command()} status {args.out}; rerun them with --retry-failed")
+    print(f"report: {command()} report {args.out}   TensorBoard HParams: {command('tensorboard')} --logdir "
+          f"{args.out}/runs")
     return 0 if not counts.get("failed") else 1
 
 
@@ -264,16 +405,20 @@ def _status(args: argparse.Namespace) -> int:
 
 
 def _report(args: argparse.Namespace) -> int:
-    from marl_core.ablation.report import write_report
+    from marl_core.ablation.report import is_smoke_test, write_report
 
     if args.test not in ("mannwhitney", "welch"):
         raise UsageError(f"--test = {args.test!r} is not allowed; expected mannwhitney or welch")
     out = write_report(args.sweep_dir, test=args.test)
     print(f"report: {out / 'report.md'}  runs: {out / 'runs.csv'}  figures: {out / 'figures'}")
+    if is_smoke_test(args.sweep_dir):
+        print("a smoke test (smoke_test: true in its spec): the runs are too short to learn, so the numbers "
+              "say nothing about the arms")
     return 0
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    args = None
     try:
         args = _parser().parse_args(argv)
         return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate, "ablate": _ablate,
@@ -281,6 +426,20 @@ def main(argv: Sequence[str] | None = None) -> int:
     except (UsageError, EnvError, MarlError) as err:
         print(f"marl-core: error: {err}", file=sys.stderr)
         return 2
+    except _Exit as done:
+        return done.status
+    except KeyboardInterrupt:
+        again = ""
+        if args is not None and args.command == "ablate":
+            again = f"; rerun the same command to continue: {command()} ablate {args.spec} --out {args.out}"
+        print(f"marl-core: interrupted{again}", file=sys.stderr, flush=True)
+        return 130
+    except BrokenPipeError:  # e.g. marl-core envs | head: the reader left; say nothing more
+        try:  # no second error when Python flushes stdout at exit
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, ValueError, AttributeError):
+            pass
+        return 1
 
 
 if __name__ == "__main__":

@@ -244,10 +244,9 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
     given = dict(given)
     for key, value in list(given.items()):
         param = by_name.get(key)
-        if key in getattr(module, "RENAMED", {}):
-            raise _own_error(f"env.params.{key} is no longer accepted: {module.RENAMED[key]}")
-        if param is None:
-            raise _own_error(_unknown(f"env.params.{key}", "env.params.", by_name))
+        problem = _param_name_problem(module, key)
+        if problem is not None:
+            raise _own_error(problem)
         if value is None and param.default is None:
             del given[key]  # null for a parameter whose default is null: the resolved dump writes it so
             continue
@@ -262,6 +261,18 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
         return resolver(given) if resolver is not None else resolve(game, table, given)
     except ParamError as err:  # a rule between parameters (matrix_v0: a bundled game with payoffs)
         raise _own_error(f"env.params: {err}") from None
+
+
+def _param_name_problem(module: Any, key: str) -> str | None:
+    """``None`` when ``key`` is a parameter of the game ``module``, else the one-line error (a renamed
+    parameter names what replaced it; an unknown one the nearest valid names)."""
+    renamed = getattr(module, "RENAMED", {})
+    if key in renamed:
+        return f"env.params.{key} is no longer accepted: {renamed[key]}"
+    names = [p.name for p in module.PARAMS]
+    if key not in names:
+        return _unknown(f"env.params.{key}", "env.params.", names)
+    return None
 
 
 # ---------------------------------------------------------------------------------------- learners
@@ -324,7 +335,7 @@ class IDQNConfig(_LearnerBase):
     """Independent DQN: one Q-network per agent (or one shared), with its own replay and target network."""
 
     kind: Literal["idqn"] = Field("idqn", description="learning algorithm: independent DQN")
-    # gamma 0.99: DQN, Mnih et al. 2015 (REFERENCES)
+    # gamma 0.99: DQN, Mnih et al. 2015 (docs/sources.md, "DQN")
     gamma: float = _gamma(0.99)
     lr: float = _lr(5e-4, "Q-networks")
     batch_size: _Int = _batch_size(64)
@@ -333,7 +344,8 @@ class IDQNConfig(_LearnerBase):
     dueling: bool = Field(False, description="dueling head: Q = V + A - mean(A)")
     n_step: _PositiveInt = Field(1, description="steps of reward summed in the return before bootstrapping")
     prioritized: bool = Field(False, description="prioritized replay (proportional, with importance weights)")
-    # alpha 0.6, beta 0.4 at the start: Schaul et al. 2016, proportional variant (REFERENCES, from memory)
+    # alpha 0.6, beta 0.4 at the start: Schaul et al. 2016, proportional variant, from memory
+    # (docs/sources.md, "Prioritized replay")
     priority_alpha: float = Field(0.6, ge=0.0, le=1.0, description="prioritized replay: exponent on "
                                   "priorities (0 = uniform)")
     priority_beta_start: float = Field(0.4, ge=0.0, le=1.0, description="prioritized replay: initial "
@@ -362,7 +374,7 @@ class MADDPGConfig(_LearnerBase):
 
     kind: Literal["maddpg"] = Field("maddpg", description="learning algorithm: MADDPG-style centralised "
                                     "critic")
-    # gamma 0.95, tau 0.01: Lowe et al. 2017 (REFERENCES, from memory)
+    # gamma 0.95, tau 0.01: Lowe et al. 2017, from memory (docs/sources.md, "MADDPG")
     gamma: float = _gamma(0.95)
     lr: float = _lr(1e-3, "critic")
     batch_size: _Int = _batch_size(256)
@@ -746,10 +758,13 @@ def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict
                           f"got {_show(data)}")
     out = copy.deepcopy(data)
     known = _override_paths()
+    params: list[tuple[str, str]] = []  # (item, game parameter name) of every override under env.params
     for item in overrides:
         parts, value = _split_override(item)
         path = ".".join(parts)
         under_params = parts[:2] == ["env", "params"] and len(parts) > 2
+        if under_params:
+            params.append((item, parts[2]))
         if path not in known and not under_params:
             if parts[0] in SECTIONS and len(parts) > 1:
                 section = parts[0] + "."
@@ -762,7 +777,22 @@ def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict
             set_dotted(out, path, value)
         except ConfigError as err:
             raise ConfigError(f"--set {item}: {err}") from None
+    _check_param_names(out, params)
     return out
+
+
+def _check_param_names(data: dict[str, Any], params: list[tuple[str, str]]) -> None:
+    """A game parameter name given with ``--set`` is checked against the game's table once every override
+    is applied (an override of ``env.name`` may come after it), so its error carries the ``--set`` item."""
+    env = data.get("env")
+    name = env.get("name", EnvConfig.model_fields["name"].default) if isinstance(env, dict) else None
+    if not params or not isinstance(name, str) or name not in envs.GAMES:
+        return  # another env's keyword arguments are its own business; a bad env.name fails at validation
+    module = envs.game_module(name)
+    for item, key in params:
+        problem = _param_name_problem(module, key)
+        if problem is not None:
+            raise ConfigError(f"--set {item}: {problem}")
 
 
 def set_dotted(data: dict[str, Any], key: str, value: Any) -> None:

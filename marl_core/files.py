@@ -2,7 +2,8 @@
 
 ``atomic_write(path, write)`` calls ``write(file)`` on a temporary file in the target's directory, flushes and
 fsyncs it, then renames it over ``path`` (``os.replace`` is atomic on POSIX). A crash leaves either the old
-file or the new one, never a mix; the temporary file is removed if ``write`` fails.
+file or the new one, never a mix; the temporary file is removed if ``write`` fails. Every file written so
+gets the usual mode of a new file (``0o666`` less the umask, e.g. ``0644``), like any other file of a run.
 """
 
 from __future__ import annotations
@@ -10,7 +11,7 @@ from __future__ import annotations
 import json
 import math
 import os
-import tempfile
+import secrets
 from collections.abc import Callable
 from pathlib import Path
 from typing import IO, Any
@@ -18,14 +19,21 @@ from typing import IO, Any
 __all__ = ["atomic_write", "write_json", "finite"]
 
 
-def atomic_write(path: str | Path, write: Callable[[IO], None], binary: bool = False) -> Path:
-    """Write ``path`` atomically through ``write(file)``; returns the path."""
+def atomic_write(path: str | Path, write: Callable[[IO], None], binary: bool = False,
+                 newline: str | None = None) -> Path:
+    """Write ``path`` atomically through ``write(file)``; returns the path.
+
+    The file gets the mode any new file gets (``0o666`` less the umask, e.g. ``0644``): the temporary file
+    is created with ``os.open(..., 0o666)`` so the system applies the umask, as ``open(path, "w")`` would
+    (``tempfile.mkstemp`` would make it ``0600``). ``newline`` is passed to the text file (``""``: no
+    translation, as the csv module wants).
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    fd, tmp = _create_temp(path)
     try:
-        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600; give the usual permissions of a new file
-        with os.fdopen(fd, "wb" if binary else "w", **({} if binary else {"encoding": "utf-8"})) as f:
+        text = {} if binary else {"encoding": "utf-8", "newline": newline}
+        with os.fdopen(fd, "wb" if binary else "w", **text) as f:
             write(f)
             f.flush()
             os.fsync(f.fileno())
@@ -36,10 +44,16 @@ def atomic_write(path: str | Path, write: Callable[[IO], None], binary: bool = F
     return path
 
 
-def _umask() -> int:
-    mask = os.umask(0)
-    os.umask(mask)
-    return mask
+def _create_temp(path: Path) -> tuple[int, str]:
+    """A new, empty temporary file beside ``path`` (open for writing) and its name; mode 0o666 & ~umask."""
+    flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0) | getattr(os, "O_CLOEXEC", 0)
+    for _ in range(100):
+        tmp = str(path.parent / f".{path.name}.{secrets.token_hex(4)}.tmp")
+        try:
+            return os.open(tmp, flags, 0o666), tmp
+        except FileExistsError:
+            continue
+    raise FileExistsError(f"no free temporary file name beside '{path}'")  # pragma: no cover
 
 
 def finite(x: Any) -> Any:

@@ -51,7 +51,9 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
 
     Returns ``episodes``, per-agent mean ``returns``, ``return_mean`` (mean over agents), the four social
     outcome metrics (means over episodes, NaN values left out), ``episode_length`` and, with ``gif``, the
-    ``frames`` of copy 0's first episode.
+    ``frames`` of copy 0's first episode: its first state, then the state after each step. The env must be
+    made with ``render=True`` for the last one: the env resets copy 0 inside the step that ends its episode,
+    so that frame is the step's ``final_frame`` (rendered before the reset), not ``render(0)``.
     """
     col = Collector(env, seed)
     B = env.num_envs
@@ -65,7 +67,7 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     while (quota > 0).any():
         st = col.step(policy(col.obs))
         if recording:
-            frames.append(env.render(0))
+            frames.append(st.final_frame if st.end[0] else env.render(0))
         for b in np.nonzero(quota > 0)[0]:
             rewards[b].append(st.rewards[b])
             frozen[b].append(st.frozen[b])

@@ -16,7 +16,9 @@ name                            what is built
 Every :class:`TeamEnv` holds ``num_envs`` copies (B) of a team of N agents and steps them with one
 ``(B, N)`` array of discrete actions. A copy whose episode ends is reset inside ``step``: the returned
 :class:`Step` carries the final observation of the ended episode in ``obs`` and the first observation of the
-next one in ``reset_obs``, and the next ``step`` continues from ``reset_obs``.
+next one in ``reset_obs``, and the next ``step`` continues from ``reset_obs``. An env made with
+``render=True`` also renders copy 0 after a step that ends its episode, before the reset, into
+``Step.final_frame``: ``render(0)`` after that step already shows the next episode's first state.
 
 Seeding: the first reset uses the seed given to :func:`make_team_env` (or to :meth:`TeamEnv.reset`); copy
 ``b`` gets ``seed + b``. Every later (automatic) reset is unseeded, so each copy's own generator continues
@@ -43,6 +45,7 @@ import envs
 from envs.core import check_joint_actions
 from envs.params import nearest
 from marl_core.errors import EnvAdapterError
+from marl_core.hints import command
 from marl_core.spec import TeamSpec
 
 __all__ = ["Step", "TeamEnv", "GameTeamEnv", "ParallelTeamEnv", "GymTeamEnv", "make_team_env",
@@ -69,6 +72,8 @@ class Step:
         reset_obs: (B, N, ...) first observation of the next episode for copies with ``end``; rows of copies
             that did not end hold ``obs``. None when no copy ended.
         reset_state: likewise for ``state`` (None also when the env has no state).
+        final_frame: (H, W, 3) uint8 frame of copy 0 after this step, rendered before the auto-reset, when
+            copy 0's episode ended and the env was made with ``render=True``; else None.
     """
 
     obs: np.ndarray
@@ -80,6 +85,7 @@ class Step:
     infos: dict[str, np.ndarray] = field(default_factory=dict)
     reset_obs: np.ndarray | None = None
     reset_state: np.ndarray | None = None
+    final_frame: np.ndarray | None = None
 
     @property
     def truncated(self) -> np.ndarray:
@@ -184,12 +190,14 @@ class GameTeamEnv(TeamEnv):
     truncated, as the game's ``horizon`` says), so the whole batch is reset together when it ends. ``frozen`` comes from ``infos["frozen"]``, the state from ``game.state()``.
     """
 
-    def __init__(self, game: Any, seed: int, name: str | None = None, with_state: bool = True):
+    def __init__(self, game: Any, seed: int, name: str | None = None, with_state: bool = True,
+                 render: bool = False):
         spec = TeamSpec(agents=tuple(game.possible_agents), obs_space=game.observation_space,
                         num_actions=int(game.action_space.n), state_space=game.state_space)
         super().__init__(name or game.name, spec, game.num_envs, seed)
         self.game = game
         self.with_state = with_state  # False: skip state() on every step when no learner needs it
+        self._render = bool(render)  # True: Step.final_frame at the end of an episode
 
     def _state(self) -> np.ndarray | None:
         return self.game.state() if self.with_state else None
@@ -209,16 +217,18 @@ class GameTeamEnv(TeamEnv):
         if (done.any(axis=1) & ~end).any():
             raise EnvAdapterError(f"{self.name}: some agents finished before the others; {STAY_MESSAGE}")
         frozen = (infos["frozen"] > 0) if "frozen" in infos else np.zeros(done.shape, bool)
-        reset_obs = reset_state = None
+        reset_obs = reset_state = final_frame = None
         if end.any():
             if not end.all():
                 raise EnvAdapterError(f"{self.name}: copies {np.flatnonzero(end).tolist()} ended but not all "
                                       f"{self.num_envs}; a batched game must run its copies in lockstep")
+            if self._render:  # the last state of the episode, before the reset replaces it
+                final_frame = self.game.render_rgb(0)
             reset_obs, _ = self.game.reset(seed=None)  # unseeded: each copy's generator continues
             reset_state = self._state()
         return Step(obs=obs, state=state, rewards=rewards.astype(np.float32, copy=False),
                     terminated=terminated, end=end, frozen=frozen, infos=infos,
-                    reset_obs=reset_obs, reset_state=reset_state)
+                    reset_obs=reset_obs, reset_state=reset_state, final_frame=final_frame)
 
     def render(self, index: int = 0) -> np.ndarray | None:
         return self.game.render_rgb(self._check_index(index))
@@ -260,8 +270,11 @@ class _CopyLoopTeamEnv(TeamEnv):
             obs[b], s, rewards[b], terminated[b], end[b] = self._step_copy(b, actions[b])
             if state is not None:
                 state[b] = s
-        reset_obs = reset_state = None
+        reset_obs = reset_state = final_frame = None
         if end.any():
+            if end[0] and self._render:  # the last state of copy 0's episode, before its reset
+                frame = self.envs[0].render()
+                final_frame = None if frame is None else np.asarray(frame)
             reset_obs = obs.copy()
             reset_state = None if state is None else state.copy()
             for b in np.flatnonzero(end):
@@ -269,7 +282,8 @@ class _CopyLoopTeamEnv(TeamEnv):
                 if reset_state is not None:
                     reset_state[b] = s
         return Step(obs=obs, state=state, rewards=rewards, terminated=terminated, end=end,
-                    frozen=np.zeros((B, N), bool), infos={}, reset_obs=reset_obs, reset_state=reset_state)
+                    frozen=np.zeros((B, N), bool), infos={}, reset_obs=reset_obs, reset_state=reset_state,
+                    final_frame=final_frame)
 
     def _reset_copy(self, b: int, seed: int | None) -> tuple[np.ndarray, np.ndarray | None]:
         raise NotImplementedError
@@ -512,7 +526,8 @@ def _import_factory(name: str) -> Callable[..., Any]:
         module = importlib.import_module(module_name)
     except ImportError as exc:
         if module_name.split(".")[0] == "mpe2":
-            hint = '; install it with pip install "marl-core[dev]" or pip install mpe2'
+            pip = command("pip")
+            hint = f'; install it with {pip} install "marl-core[dev]" or {pip} install mpe2'
         else:
             hint = "; is its package installed?"
         raise EnvAdapterError(f"env.name = {name!r}: cannot import module {module_name!r} ({exc}){hint}") \
@@ -539,7 +554,8 @@ def make_team_env(name: str, params: Mapping[str, Any] | None, num_envs: int, se
         params: keyword arguments of the game / factory / ``gymnasium.make``.
         num_envs: number of copies B (>= 1).
         seed: seed of the first reset; copy ``b`` gets ``seed + b``.
-        render: adapters make their first copy with ``render_mode="rgb_array"`` (our games always render).
+        render: adapters make their first copy with ``render_mode="rgb_array"`` (our games always render);
+            with it, a step that ends copy 0's episode carries that copy's last frame (``Step.final_frame``).
         with_state: our games compute ``state()`` every step only when this is True (adapters always do).
 
     Raises:
@@ -559,7 +575,8 @@ def make_team_env(name: str, params: Mapping[str, Any] | None, num_envs: int, se
     num_envs, seed = int(num_envs), _check_seed(seed)
 
     if name in envs.GAMES:
-        return GameTeamEnv(envs.make_vector(name, num_envs, **params), seed, name=name, with_state=with_state)
+        return GameTeamEnv(envs.make_vector(name, num_envs, **params), seed, name=name, with_state=with_state,
+                           render=render)
     if name.startswith(GYM_PREFIX):
         env_id = name[len(GYM_PREFIX):]
         if not env_id:

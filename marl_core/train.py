@@ -22,12 +22,22 @@ the counters. What it does not: the replay contents (refilled from fresh experie
 batch is ready) and the env's mid-episode state (a new episode starts, the interrupted one is not counted).
 A resumed run therefore does not reproduce an uninterrupted one bit for bit; it logs every evaluation step
 exactly once (later lines and TensorBoard events are purged back to the checkpoint).
+
+Ctrl-C (SIGINT) during the training loop does not stop the loop where it happens to be: the first one asks
+the loop to stop at the end of the current step (every counter, the learner and the logs then agree), where
+a checkpoint is saved (atomically, as always) and :class:`TrainingInterrupted` is raised; a second Ctrl-C
+stops at once, and the last periodic checkpoint stands. A ``KeyboardInterrupt`` raised by the ``progress``
+callback is handled the same way. ``TrainingInterrupted`` is a ``KeyboardInterrupt``: a caller that does
+not know it still sees an interrupt. (The deferral applies in the main thread when SIGINT has Python's
+default handler; elsewhere SIGINT is left alone.)
 """
 
 from __future__ import annotations
 
 import json
 import math
+import signal
+import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -41,6 +51,7 @@ from marl_core.baselines import team_names
 from marl_core.config import RunConfig, config_hash, dump_config, load_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
+from marl_core.hints import command
 from marl_core.learners import build_learner
 from marl_core.maddpg import resolve_critic_input
 from marl_core.policy import atomic_torch_save, safe_torch_load
@@ -49,11 +60,58 @@ from marl_core.rollout import Collector, evaluate
 from marl_core.targets import linear_schedule
 from marl_core.team_env import make_team_env
 
-__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run"]
+__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run", "finished_summary",
+           "TrainingInterrupted"]
 
 CHECKPOINT_FORMAT = 2  # 2: baselines beside the random team
 EVAL_SEED_OFFSET = 1_000_003  # evaluation episodes use seeds apart from training's
 MAX_EVAL_COPIES = 64  # evaluation plays up to this many episodes side by side
+
+
+class TrainingInterrupted(KeyboardInterrupt):
+    """Training stopped by Ctrl-C (or a ``KeyboardInterrupt`` from the progress callback).
+
+    Attributes:
+        run_dir: the run directory.
+        env_steps, total_steps: where the loop stopped, and ``train.total_steps``.
+        checkpoint: the checkpoint a resume starts from, or None when none was written yet.
+        checkpoint_steps: its env steps (None without a checkpoint).
+        saved: True when the checkpoint was saved at the interrupt, False when it is the last periodic one
+            (the interrupt came in the middle of a step, where saving is not safe).
+    """
+
+    def __init__(self, run_dir: Path, env_steps: int, total_steps: int, checkpoint: Path | None,
+                 checkpoint_steps: int | None, saved: bool):
+        self.run_dir, self.env_steps, self.total_steps = run_dir, env_steps, total_steps
+        self.checkpoint, self.checkpoint_steps, self.saved = checkpoint, checkpoint_steps, saved
+        where = f"checkpoint {checkpoint} (step {checkpoint_steps})" if checkpoint else "no checkpoint yet"
+        super().__init__(f"training interrupted at step {env_steps} of {total_steps}; {where}")
+
+
+class _DeferSigint:
+    """While active, the first SIGINT only sets ``requested`` (the loop stops at its next safe point); a
+    second one raises ``KeyboardInterrupt`` at once. Installed only in the main thread over Python's
+    default handler, so embedding code that handles SIGINT itself keeps its handler."""
+
+    def __init__(self) -> None:
+        self.requested = False
+        self._old: Any = None
+
+    def __enter__(self) -> _DeferSigint:
+        if (threading.current_thread() is threading.main_thread()
+                and signal.getsignal(signal.SIGINT) is signal.default_int_handler):
+            self._old = signal.signal(signal.SIGINT, self._handle)
+        return self
+
+    def _handle(self, signum: int, frame: Any) -> None:
+        if self.requested:
+            raise KeyboardInterrupt
+        self.requested = True
+
+    def __exit__(self, *exc: Any) -> None:
+        if self._old is not None:
+            signal.signal(signal.SIGINT, self._old)
+            self._old = None
 
 
 def _result(ev: dict[str, Any]) -> dict[str, Any]:
@@ -179,6 +237,31 @@ class _Run:
 
     # -- the loop
     def train(self) -> dict[str, Any]:
+        """Train to ``train.total_steps`` and finish; on Ctrl-C see the module docstring."""
+        safe = [True]  # False while a step is under way: a checkpoint then could mix two steps
+        with _DeferSigint() as sigint:
+            try:
+                self._loop(sigint, safe)
+            except KeyboardInterrupt:
+                raise self._interrupted(safe[0]) from None
+        return self.finish()
+
+    def _interrupted(self, safe: bool) -> TrainingInterrupted:
+        """Save a checkpoint if the loop stopped between steps; close the logs; the exception to raise."""
+        path = self.out / "checkpoints" / "last.pt"
+        if safe:
+            self.save_checkpoint()
+        if self.writer is not None:
+            self.writer.close()
+        self.env.close()
+        self.eval_env.close()
+        steps = None
+        if path.is_file():
+            steps = self.env_steps if safe else int(safe_torch_load(path, "checkpoint")["counters"]["env_steps"])
+        return TrainingInterrupted(self.out, self.env_steps, self.cfg.train.total_steps,
+                                   path if path.is_file() else None, steps, saved=safe)
+
+    def _loop(self, sigint: _DeferSigint, safe: list[bool]) -> None:
         cfg, L, T = self.cfg, self.cfg.learner, self.cfg.train
         B = cfg.env.num_envs
         col = Collector(self.env, T.seed + self.env_steps)
@@ -189,7 +272,12 @@ class _Run:
         stats: dict[str, float] = {}
         t0, s0 = time.perf_counter(), self.env_steps
         prioritized = getattr(L, "prioritized", False)
+        if self.progress is not None:  # the start: steps/s and elapsed time count from here
+            self.progress(self.env_steps, T.total_steps, self.last_eval)
         while self.env_steps < T.total_steps:
+            if sigint.requested:
+                raise KeyboardInterrupt
+            safe[0] = False
             actions = self.learner.act(col.obs, explore=True, env_steps=self.env_steps)
             st = col.step(actions)
             self.replay.add(actions, st.rewards, st.terminated, st.end, st.obs,
@@ -220,9 +308,9 @@ class _Run:
             if self.env_steps >= next_ckpt or self.env_steps >= T.total_steps:
                 next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
                 self.save_checkpoint()
+            safe[0] = True
             if self.progress is not None:
                 self.progress(self.env_steps, T.total_steps, self.last_eval)
-        return self.finish()
 
     def finish(self) -> dict[str, Any]:
         if self.last_eval is None:
@@ -259,7 +347,7 @@ def _baseline_names(cfg: RunConfig) -> tuple[str, ...]:
 def _fresh_dir(out: Path) -> None:
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise RunDirError(f"run directory '{out}' already exists and is not empty; choose a new --out, or "
-                          f"continue it with: marl-core train --resume {out}")
+                          f"continue it with: {command()} train --resume {out}")
 
 
 def run(cfg: RunConfig, out: str | Path,
@@ -282,6 +370,22 @@ def load_run(out: str | Path) -> RunConfig:
     if not (out / "config.yaml").is_file():
         raise RunDirError(f"'{out}' is not a run directory (no config.yaml)")
     return load_config(out / "config.yaml")
+
+
+def finished_summary(out: str | Path) -> dict[str, Any] | None:
+    """The summary of the run in ``out`` if it is finished (its ``summary.json`` is at
+    ``train.total_steps``), else None. Reads files only."""
+    out = Path(out)
+    cfg = load_run(out)
+    path = out / "summary.json"
+    if not path.is_file():
+        return None
+    try:
+        summary = json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None
+    steps = summary.get("env_steps") if isinstance(summary, dict) else None
+    return summary if isinstance(steps, int) and steps >= cfg.train.total_steps else None
 
 
 def resume(out: str | Path,

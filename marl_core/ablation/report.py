@@ -3,7 +3,8 @@
 ``write_report(sweep_dir)`` reads a sweep directory written by :func:`marl_core.ablation.runner.ablate`
 and writes ``sweep_dir/report/``::
 
-    report.md                     header, notes on method (test, intervals and their measured coverage,
+    report.md                     header (first, when the spec says ``smoke_test: true``, a note that the
+                                  sweep is a smoke test whose numbers say nothing about the arms), notes on method (test, intervals and their measured coverage,
                                   correction), warnings, failed runs, Table 1 per metric (per-arm mean
                                   and IQM with 95% intervals, each non-learning team's mean), the arms
                                   that are not better than the strongest non-learning team, Table 2 per
@@ -50,7 +51,6 @@ import math
 import numbers
 import os
 import re
-import tempfile
 from pathlib import Path
 from typing import Any
 
@@ -61,8 +61,11 @@ from envs.metrics import METRIC_NAMES
 from marl_core.ablation import stats
 from marl_core.ablation.ledger import Ledger
 from marl_core.errors import ConfigError, MissingExtraError, RunDirError
+from marl_core.files import atomic_write
+from marl_core.hints import command
 
-__all__ = ["write_report", "report_summary", "METRICS", "HOLM_FAMILIES", "FEW_SEEDS", "CONFIDENCE"]
+__all__ = ["write_report", "report_summary", "is_smoke_test", "METRICS", "HOLM_FAMILIES", "FEW_SEEDS",
+           "CONFIDENCE"]
 
 #: The metrics of the tables and figures, in display order; every one is higher-is-better.
 METRICS: tuple[str, ...] = ("return_mean", *METRIC_NAMES)
@@ -247,6 +250,24 @@ def _load(sweep_dir: str | os.PathLike) -> dict[str, Any]:
         spec = None
     return {"sweep_dir": str(sweep), "baseline": baseline, "spec": spec if isinstance(spec, dict) else None,
             "runs": [_load_run(sweep, row) for row in rows]}
+
+
+def is_smoke_test(sweep_dir: str | os.PathLike) -> bool:
+    """True when the spec of the sweep in ``sweep_dir`` (as its ledger recorded it) says ``smoke_test:
+    true``: its runs are too short to learn and its numbers say nothing about the arms."""
+    return (_load_spec(Path(sweep_dir) / "ledger.sqlite") or {}).get("smoke_test") is True
+
+
+def _load_spec(ledger_path: Path) -> dict[str, Any] | None:
+    if not ledger_path.is_file():
+        return None
+    with Ledger(ledger_path) as ledger:
+        text = ledger.get_meta("spec")
+    try:
+        spec = json.loads(text) if text else None
+    except ValueError:
+        return None
+    return spec if isinstance(spec, dict) else None
 
 
 # ================================================================================== statistics
@@ -473,6 +494,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
         "warnings": warns, "failed": failed, "runs_total": total, "runs_done": n_done,
         "test": test, "reps": reps, "seed": seed, "confidence": CONFIDENCE, "holm_family": holm_family,
         "metrics": list(METRICS), "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
+        "smoke_test": spec.get("smoke_test") is True,
         "runs": [{k: v for k, v in r.items() if k not in ("config", "curve", "problems")} for r in runs],
     }
 
@@ -495,7 +517,8 @@ def report_summary(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps
     arm), ``curves`` (arm -> ``env_steps``, ``seeds`` and per metric ``mean``, ``ci_low``, ``ci_high``),
     ``axes`` (varying override key -> ``values`` per arm, ``numeric``, ``groups``), ``warnings`` (markdown
     lines), ``failed`` (run_id, arm, seed, last line of the error), ``runs`` (one flat record per ledger
-    row), and the settings (``test``, ``reps``, ``seed``, ``confidence``, ``holm_family``).
+    row), ``smoke_test`` (True when the sweep's spec says ``smoke_test: true``), and the settings
+    (``test``, ``reps``, ``seed``, ``confidence``, ``holm_family``).
 
     ``stats.summarize(x)`` and ``stats.compare(arm, baseline, test)`` on an arm's done runs (ordered by seed)
     give the same numbers; every interval is a formula (Student t, trimmed-mean t, Welch t), so ``reps`` and
@@ -511,15 +534,8 @@ def report_summary(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps
 
 # ================================================================================== writing
 def _write_text(path: Path, text: str) -> None:
-    """Write ``text`` atomically (a temp file beside ``path``, then a rename)."""
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as f:
-            f.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    """Write ``text`` atomically (a temp file beside ``path``, then a rename), with the usual file mode."""
+    atomic_write(path, lambda f: f.write(text), newline="")
 
 
 def _cell(value: Any) -> Any:
@@ -639,6 +655,10 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     L: list[str] = []
     add = L.append
     add("# Sweep report\n")
+    if summary["smoke_test"]:
+        add("> **Smoke test.** This sweep's spec says `smoke_test: true`: its runs are too short to learn, so "
+            "this report shows that training, the ledger and the report work end to end. Its numbers say "
+            "nothing about the arms; do not read them as results.\n")
     add(f"- **Sweep directory:** `{summary['sweep_dir']}`")
     if summary["games"] or summary["learners"]:
         add(f"- **Game(s):** {', '.join(summary['games']) or 'n/a'}; **learner(s):** "
@@ -782,7 +802,8 @@ def _matplotlib() -> tuple[Any, Any]:
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
     except ImportError:
-        raise MissingExtraError("the report's figures need matplotlib: pip install matplotlib") from None
+        raise MissingExtraError(f"the report's figures need matplotlib: {command('pip')} install matplotlib") \
+            from None
     return Figure, FigureCanvasAgg
 
 

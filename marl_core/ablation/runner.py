@@ -33,6 +33,7 @@ from typing import Any
 from marl_core.ablation.ledger import Ledger
 from marl_core.ablation.spec import Sweep, load_spec
 from marl_core.errors import MissingExtraError, RunDirError
+from marl_core.hints import command
 
 __all__ = ["ablate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE"]
 
@@ -263,7 +264,7 @@ def _run_ray(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers
     try:
         import ray
     except ImportError:
-        raise MissingExtraError('the ray backend needs Ray: pip install "marl-core[ray]"') from None
+        raise MissingExtraError(f'the ray backend needs Ray: {command("pip")} install "marl-core[ray]"') from None
     started_here = not ray.is_initialized()
     if started_here:
         if address:

@@ -14,6 +14,8 @@ A spec (every key but ``base`` and ``seeds`` may be left out)::
       wide_view: {env.params.view_radius: 7}
     set: {train.total_steps: 50000}   # applied to every run
     baseline: narrow_view/kind=idqn,share_parameters=false   # required with more than one arm
+    smoke_test: false                 # true: runs too short to learn; the sweep checks that the pipeline
+                                      # works, and its report says so at the top (default false)
 
 Arms and their names, in the order written:
 
@@ -53,7 +55,6 @@ Checks, all before anything runs (each a one-line :class:`marl_core.errors.Confi
 from __future__ import annotations
 
 import copy
-import difflib
 import hashlib
 import itertools
 import json
@@ -65,6 +66,7 @@ from pathlib import Path
 from typing import Any
 
 import envs
+from envs.params import nearest
 from marl_core.config import (
     RunConfig,
     config_hash,
@@ -79,7 +81,7 @@ from marl_core.errors import ConfigError
 __all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "load_spec", "parse_spec", "sweep_table"]
 
 #: The keys a spec may have.
-SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline")
+SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test")
 _COMBINE = ("product", "zip")
 _SECTIONS = ("env", "learner", "train", "log")
 _PARAMS = "env.params."
@@ -133,6 +135,8 @@ class Sweep:
         shared: the ``set`` overrides.
         base: the base config mapping as written (before any override).
         base_path: the base config file, or ``None`` for an inline base.
+        smoke_test: the spec's ``smoke_test``: the runs are too short to learn, so the sweep tests the
+            pipeline, not the arms (the report says so at the top). Not part of ``spec_hash``.
     """
 
     arms: list[Arm]
@@ -146,6 +150,7 @@ class Sweep:
     shared: dict[str, Any] = field(default_factory=dict)
     base: dict[str, Any] = field(default_factory=dict, repr=False)
     base_path: str | None = None
+    smoke_test: bool = False
 
     @property
     def arm_names(self) -> list[str]:
@@ -239,9 +244,9 @@ def _check_key(key: Any, where: str, base: dict[str, Any]) -> str:
         inside = [k for k in candidates if k.startswith(prefix) and k != "env.params"]
         tail = key.split(".", 2)[-1] if prefix == _PARAMS else rest
         names = [k[len(prefix):] for k in inside]
-        close = [prefix + n for n in difflib.get_close_matches(tail, names, n=3, cutoff=0.6)]
+        close = [prefix + n for n in nearest(tail, names)]
     if not close:
-        close = difflib.get_close_matches(key, candidates, n=3, cutoff=0.6)
+        close = nearest(key, candidates)
     if close:
         raise ConfigError(f"{where}: unknown key '{key}'; did you mean {_did_you_mean(close)}?")
     if section in _SECTIONS:
@@ -382,7 +387,7 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
                           f"{_show(data)}")
     for key in data:
         if key not in SPEC_KEYS:
-            close = difflib.get_close_matches(str(key), SPEC_KEYS, n=3, cutoff=0.5)
+            close = nearest(str(key), SPEC_KEYS)
             hint = (f"; did you mean {_did_you_mean(close)}?" if close
                     else f" (valid keys: {', '.join(SPEC_KEYS)})")
             raise ConfigError(f"unknown spec key {_show(key)}{hint}")
@@ -399,6 +404,9 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
         raise ConfigError(f"base config {base_path or '(inline)'}: {err}") from None
 
     seeds = _read_seeds(data.get("seeds"))
+    smoke_test = data.get("smoke_test", False)
+    if not isinstance(smoke_test, bool):
+        raise ConfigError(f"smoke_test = {_show(smoke_test)} is not allowed: expected true or false")
     combine = data.get("combine", "product")
     if combine not in _COMBINE:
         raise ConfigError(f"combine = {_show(combine)} is not allowed: expected one of "
@@ -450,7 +458,7 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
                               f"others with (arms: {', '.join(names)})")
         baseline = names[0]
     elif baseline not in names:
-        close = difflib.get_close_matches(str(baseline), names, n=3, cutoff=0.5)
+        close = nearest(str(baseline), names)
         hint = f"did you mean {_did_you_mean(close)}?" if close else f"arms: {', '.join(names)}"
         raise ConfigError(f"baseline {_show(baseline)} is not an arm; {hint}")
 
@@ -478,7 +486,8 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
                          "runs": [[r.arm, r.seed, r.run_id] for r in runs]})
     spec_hash = hashlib.sha256(digest.encode("utf-8")).hexdigest()[:12]
     return Sweep(arms=arms, runs=runs, baseline=baseline, seeds=seeds, axes=axes, spec_hash=spec_hash,
-                 source=source, combine=combine, shared=shared, base=base, base_path=base_path)
+                 source=source, combine=combine, shared=shared, base=base, base_path=base_path,
+                 smoke_test=smoke_test)
 
 
 def load_spec(path: str | os.PathLike) -> Sweep:

@@ -232,6 +232,8 @@ def test_quick_sweep_end_to_end_local(local_sweep, capsys):
         assert f"figures/{name}" in md  # report.py _markdown: links to every figure drawn
     for arm in ("share_parameters=false", "share_parameters=true"):
         assert arm in md
+    # quick.yaml says smoke_test: true; the report opens with that note (report.py module docstring)
+    assert "**Smoke test.**" in md.split("\n## ", 1)[0]
 
     # rerun: nothing to do (contract: runner.py docstring, "Rerunning the same command skips finished runs")
     before_files, before_rows = _files(sweep / "runs"), _rows(sweep)

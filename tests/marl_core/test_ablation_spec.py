@@ -1,6 +1,7 @@
 """Sweep specs: deterministic expansion into arms and runs, stable run ids, and one-line errors that name
 the key, where it appears and the nearest valid keys."""
 
+import copy
 import json
 import subprocess
 import sys
@@ -359,3 +360,21 @@ def test_a_key_through_a_value_that_is_not_a_mapping_names_the_arm():
         parse_spec(_spec(set={"env.params": 3}, arms={"a": {"env.params.layout": "harvest_tiny"}}))
     assert str(info.value) == ("arm 'a': cannot set 'env.params.layout' because env.params = 3 is not a mapping "
                                "(from arms.a)")
+
+
+# ------------------------------------------------------------------------------------ smoke_test
+def test_smoke_test_flag_is_read_and_kept_out_of_the_hash():
+    plain = parse_spec({"base": copy.deepcopy(BASE), "seeds": [0]})
+    smoke = parse_spec({"base": copy.deepcopy(BASE), "seeds": [0], "smoke_test": True})
+    assert (plain.smoke_test, smoke.smoke_test) == (False, True)  # default false (spec.py docstring)
+    assert smoke.spec_hash == plain.spec_hash  # Sweep docstring: not part of spec_hash
+    assert smoke.source["smoke_test"] is True  # the ledger records the source; the report reads it there
+
+
+def test_smoke_test_must_be_true_or_false():
+    with pytest.raises(ConfigError, match=r"^smoke_test = 'yes' is not allowed: expected true or false$"):
+        parse_spec({"base": copy.deepcopy(BASE), "seeds": [0], "smoke_test": "yes"})
+
+
+def test_quick_spec_is_a_smoke_test():
+    assert load_spec(Path(__file__).resolve().parents[2] / "configs" / "ablations" / "quick.yaml").smoke_test

@@ -1,6 +1,7 @@
 """The command line: the demo writes its GIFs and prints the metrics; mistakes are one line and exit 2."""
 
 import json
+import re
 from pathlib import Path
 
 import pytest
@@ -72,3 +73,43 @@ def test_readme_documents_every_parameter_with_its_default():
     matrix = _table_rows(text, "| `matrix_v0` parameter |")
     for p in envs.matrix_v0.PARAMS:
         assert p.name in matrix and matrix[p.name][2].strip("`") == str(p.default), p.name
+
+
+def _envs_table(capsys, monkeypatch, columns: int) -> str:
+    monkeypatch.setenv("COLUMNS", str(columns))  # shutil.get_terminal_size reads COLUMNS first
+    assert main(["envs"]) == 0
+    return capsys.readouterr().out
+
+
+@pytest.mark.parametrize("columns", [80, 100, 160])
+def test_envs_table_cells_stay_in_their_columns(capsys, monkeypatch, columns):
+    out = _envs_table(capsys, monkeypatch, columns)
+    rows = [line for line in out.splitlines() if line.startswith("  ")]
+    # the column starts, from the first row: name, type, default, meaning each begin after a run of spaces
+    first = rows[0]
+    starts = [m.start() for m in re.finditer(r"(?:(?<=^)|(?<=\s\s))\S", first)]
+    assert len(starts) == 4, first
+    for line in rows:
+        for c in starts[1:]:
+            # the two characters before every column start are blank: no cell ran into the next column
+            assert line[c - 2:c].strip() == "", (c, line)
+        if line[:starts[1]].strip():  # the first line of a parameter: its cells begin at the column starts
+            cells = [line[a:b].strip() for a, b in zip(starts, [*starts[1:], None])]
+            assert all(cells[:2]) and line[starts[1]] != " " and line[starts[2]] != " ", line
+    assert max(len(line) for line in out.splitlines()) <= max(columns, starts[3] + 30)  # cli.py _widths
+
+
+def test_envs_table_wraps_a_long_default_without_losing_it(capsys, monkeypatch):
+    out = _envs_table(capsys, monkeypatch, 100)
+    lines = out.splitlines()
+    i = next(k for k, line in enumerate(lines) if line.split()[:1] == ["regrow_table"])
+    starts = [m.start() for m in re.finditer(r"(?:(?<=^)|(?<=\s\s))\S", lines[i])]
+    end = starts[3]
+    cell = [lines[i][starts[2]:end].strip()]
+    for line in lines[i + 1:]:
+        if line[:starts[2]].strip():  # the next parameter
+            break
+        cell.append(line[starts[2]:end].strip())
+    default = next(p for p in envs.harvest_v0.PARAMS if p.name == "regrow_table").default
+    assert len(cell) > 1  # it is long enough to wrap at 100 columns
+    assert " ".join(c for c in cell if c) == _shown(default)  # every value, in the README's spelling

@@ -80,10 +80,11 @@ def test_empty_config_and_empty_sections_mean_defaults(tmp_path):
 def test_each_learner_kind_has_its_own_defaults():
     idqn, maddpg = parse_config({}).learner, parse_config({"learner": {"kind": "maddpg"}}).learner
     assert isinstance(idqn, IDQNConfig) and isinstance(maddpg, MADDPGConfig)
-    assert idqn.gamma == 0.99  # DQN, Mnih et al. 2015 (REFERENCES)
-    assert maddpg.gamma == 0.95  # MADDPG, Lowe et al. 2017 (REFERENCES, from memory)
-    assert maddpg.tau == 0.01  # MADDPG, Lowe et al. 2017 (REFERENCES, from memory)
-    assert (idqn.priority_alpha, idqn.priority_beta_start) == (0.6, 0.4)  # Schaul et al. 2016 (from memory)
+    assert idqn.gamma == 0.99  # DQN, Mnih et al. 2015 (docs/sources.md, "DQN")
+    assert maddpg.gamma == 0.95  # MADDPG, Lowe et al. 2017, from memory (docs/sources.md, "MADDPG")
+    assert maddpg.tau == 0.01  # MADDPG, Lowe et al. 2017, from memory (docs/sources.md, "MADDPG")
+    # Schaul et al. 2016, proportional variant, from memory (docs/sources.md, "Prioritized replay")
+    assert (idqn.priority_alpha, idqn.priority_beta_start) == (0.6, 0.4)
     assert (idqn.lr, idqn.batch_size) == (5e-4, 64)  # our choice (no source)
     assert (maddpg.lr, maddpg.batch_size) == (1e-3, 256)  # our choice (no source)
     assert idqn.eval_eps == 0.0  # greedy evaluation, our choice (DQN used 0.05 on Atari)
@@ -302,3 +303,70 @@ def test_schema_table_bounds():
     assert rows["learner.grad_clip", None]["type"] == "float | null"
     assert rows["learner.critic", "maddpg"]["bounds"] == "one of 'shared', 'per_agent'"
     assert rows["train.seed", None]["bounds"] == ">= 0"
+
+
+# ------------------------------------------------------------------------------------ did you mean
+
+LEARNER_KEYS = [k.split(".", 1)[1] for k in valid_keys() if k.startswith("learner.")]
+HARVEST_PARAMS = [p.name for p in envs.harvest_v0.PARAMS]
+SECTION_NAMES = ["env", "learner", "train", "log"]
+
+
+@pytest.mark.parametrize("typed, names, expected", [
+    ("learning_rate", LEARNER_KEYS, ["lr"]),  # a synonym (envs/params.py ALIASES), not learning_starts
+    ("discount", LEARNER_KEYS, ["gamma"]),  # a synonym
+    ("num_agent", HARVEST_PARAMS, ["num_agents"]),  # a prefix, not tag_length
+    ("gama", LEARNER_KEYS, ["gamma"]),  # one letter missing
+    ("lerner", SECTION_NAMES, ["learner"]),
+    ("regrow_tabel", HARVEST_PARAMS, ["regrow_table"]),  # two letters swapped in one word part
+    ("trian", SECTION_NAMES, ["train"]),
+    ("tag_lenght", HARVEST_PARAMS, ["tag_length"]),
+    ("freeze", HARVEST_PARAMS, ["freeze_steps"]),  # a word part that starts the name
+    ("harvest_v1", list(envs.GAMES), ["harvest_v0"]),  # one wrong character in a short word part
+    ("learner.learning_rate", valid_keys(), ["learner.lr"]),  # synonyms part by dotted part
+    ("xyzzy", HARVEST_PARAMS, []),  # nothing close: no suggestion (the message lists the valid names)
+])
+def test_nearest_knows_synonyms_prefixes_and_word_parts(typed, names, expected):
+    from envs.params import nearest
+
+    assert nearest(typed, names) == expected
+
+
+def test_nearest_names_a_clear_winner_alone_and_close_ones_together():
+    from envs.params import nearest, similarity
+
+    assert similarity("learning_rate", "learning_starts") < 0.6  # word 'rate' is not 'starts'
+    assert set(nearest("eps", LEARNER_KEYS)) == {"eps_start", "eps_end", "eps_decay_steps"}  # all close
+    assert len(nearest("e", LEARNER_KEYS)) <= 3
+
+
+@pytest.mark.parametrize("data, overrides, message", [
+    ({}, ["learner.learning_rate=1e-3"],
+     r"^--set learner\.learning_rate=1e-3: unknown key 'learner\.learning_rate'; did you mean 'learner\.lr'\?$"),
+    ({}, ["learner.discount=0.9"], r"did you mean 'learner\.gamma'\?$"),
+    # unknown env.params keys given with --set carry the --set prefix like every other --set error
+    ({}, ["env.params.num_agent=3"],
+     r"^--set env\.params\.num_agent=3: unknown key 'env\.params\.num_agent'; did you mean "
+     r"'env\.params\.num_agents'\?$"),
+    ({"env": {"name": "cleanup_v0"}}, ["env.params.waste_spawn_prob=0.1"],
+     r"^--set env\.params\.waste_spawn_prob=0\.1: env\.params\.waste_spawn_prob is no longer accepted"),
+    # the game is the one named after every override, wherever --set env.name comes
+    ({}, ["env.params.pollution_rate=0.1", "env.name=matrix_v0"],
+     r"^--set env\.params\.pollution_rate=0\.1: unknown key 'env\.params\.pollution_rate'"),
+    # in the file, the same mistake has no --set prefix
+    ({"env": {"params": {"num_agent": 3}}}, [],
+     r"^unknown key 'env\.params\.num_agent'; did you mean 'env\.params\.num_agents'\?$"),
+])
+def test_set_errors_name_the_set_item(data, overrides, message):
+    with pytest.raises(ConfigError, match=message) as info:
+        parse_config(data, overrides)
+    assert "\n" not in str(info.value)
+
+
+def test_set_of_a_known_game_parameter_still_works():
+    cfg = parse_config({"env": {"name": "cleanup_v0"}}, ["env.params.pollution_rate=0.01",
+                                                         "env.params.num_agents=3"])
+    assert cfg.env.params["pollution_rate"] == 0.01 and cfg.env.params["num_agents"] == 3
+    # another env's keyword arguments are not ours to check (config.py docstring, Overrides)
+    cfg = parse_config({"env": {"name": "gymnasium:CartPole-v1"}}, ["env.params.max_episode_steps=50"])
+    assert cfg.env.params == {"max_episode_steps": 50}

@@ -87,7 +87,8 @@ def write_run(run_dir: Path, config: dict, final: dict, random: dict | None, ste
 
 
 def make_sweep(root: Path, arms=ARMS, seeds=SEEDS, failed=FAILED, nan=NAN_SUSTAINABILITY,
-               pending=(), baseline=BASELINE, baseline_sets_axis=True, baselines_of=None, with_random=True) -> Path:
+               pending=(), baseline=BASELINE, baseline_sets_axis=True, baselines_of=None, with_random=True,
+               smoke_test=None) -> Path:
     """A sweep directory of invented runs (demo data only), every run done unless listed otherwise.
 
     ``baselines_of(k, seed)`` gives the ``baselines`` mapping of arm k's run at a seed (None: an old summary
@@ -96,6 +97,8 @@ def make_sweep(root: Path, arms=ARMS, seeds=SEEDS, failed=FAILED, nan=NAN_SUSTAI
     ledger = Ledger(root / "ledger.sqlite")
     spec = {"base": "harvest_idqn.yaml", "seeds": list(seeds), "set": {"train.total_steps": 500},
             "axes": {"env.params.tag_cost": [TAG_COSTS[i] for i in range(len(arms))]}, "baseline": baseline}
+    if smoke_test is not None:
+        spec["smoke_test"] = smoke_test
     ledger.set_meta("spec", json.dumps(spec))
     ledger.set_meta("baseline", baseline)
     runs = []
@@ -501,3 +504,35 @@ def test_the_ledger_copy_keeps_the_non_learning_teams(tmp_path):
     run = next(r for r in s["runs"] if r["run_id"] == "run1s3")
     assert run["baselines"]["greedy"]["efficiency"] == pytest.approx(3.3 + 0.01)  # team_values(1, 3)
     assert run["baselines"]["noop"]["peace"] == 3.0
+
+
+# ------------------------------------------------------------------------------------ smoke tests
+@pytest.mark.parametrize("flag", [True, False, None])
+def test_report_says_when_a_sweep_is_a_smoke_test(tmp_path, flag, capsys):
+    from marl_core.ablation.report import is_smoke_test
+    from marl_core.cli import main
+
+    root = make_sweep(tmp_path / "sweep", smoke_test=flag)
+    out = write_report(root, figures=False)
+    text = (out / "report.md").read_text()
+    head = text.split("\n## ", 1)[0]
+    # report.py module docstring: the note comes first, in the header, only for `smoke_test: true`
+    assert ("**Smoke test.**" in head) is (flag is True)
+    assert ("smoke_test: true" in text) is (flag is True)
+    assert report_summary(root, reps=REPS)["smoke_test"] is (flag is True)
+    assert is_smoke_test(root) is (flag is True)
+    assert main(["report", str(root)]) == 0
+    assert ("a smoke test" in capsys.readouterr().out) is (flag is True)  # the CLI says it too
+
+
+def test_report_files_have_the_usual_mode(sweep):
+    """report.md and runs.csv get the mode of any new file, like the figures beside them (not 0600)."""
+    import os
+    import stat
+
+    mask = os.umask(0)
+    os.umask(mask)
+    out = sweep[1]
+    modes = {p.name: stat.S_IMODE(p.stat().st_mode) for p in
+             [out / "report.md", out / "runs.csv", *sorted((out / "figures").glob("*.png"))[:1]]}
+    assert set(modes.values()) == {0o666 & ~mask}, modes  # marl_core/files.py docstring

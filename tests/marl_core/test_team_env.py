@@ -14,6 +14,7 @@ from pettingzoo.utils.env import ParallelEnv
 
 import envs
 from marl_core.errors import EnvAdapterError
+from marl_core.hints import command
 from marl_core.spec import TeamSpec
 from marl_core.team_env import (
     GameTeamEnv,
@@ -225,7 +226,8 @@ def test_cartpole_time_limit_is_truncation():
 @pytest.mark.parametrize("name, params, message", [
     ("no_such_module_xyz:parallel_env", {}, "env.name = 'no_such_module_xyz:parallel_env': cannot import "
                                             "module 'no_such_module_xyz'"),
-    ("mpe2.no_such_scenario_v0:parallel_env", {}, re.escape('pip install "marl-core[dev]" or pip install mpe2')),
+    ("mpe2.no_such_scenario_v0:parallel_env", {},  # the pip that installs into this env (marl_core/hints.py)
+     re.escape(f'{command("pip")} install "marl-core[dev]" or {command("pip")} install mpe2')),
     ("mpe2.simple_spread_v3:no_such_factory", {}, "has no attribute 'no_such_factory'"),
     ("gymnasium:NoSuchEnv-v0", {}, "cannot make gymnasium env 'NoSuchEnv-v0'.*doesn't exist"),
     (SPREAD, {"continuous_actions": True}, r"agent_0 has action space Box.*needs a Discrete action space "

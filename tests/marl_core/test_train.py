@@ -272,10 +272,22 @@ def test_resume_of_a_finished_run_returns_the_same_summary(resumed, capsys):
     before = _snapshot(run)
     summary = json.loads((run / "summary.json").read_text())
     assert train.resume(run) == summary  # resume() in marl_core/train.py: a finished run returns its summary
-    assert main(["train", "--resume", str(run), "--quiet"]) == 0
-    assert f"({RESUME_TOTAL} env steps, {summary['episodes']} episodes)" in capsys.readouterr().out
+    assert train.finished_summary(run) == summary  # finished_summary(): summary.json at total_steps
+    assert main(["train", "--resume", str(run), "--quiet"]) == 0  # a finished run is no mistake: exit 0
+    out = capsys.readouterr().out
+    # marl_core/cli.py _train(): it says the run is finished, how far it got, and where its summary is
+    assert f"run: {run} is already finished: {RESUME_TOTAL} of {RESUME_TOTAL} env steps" in out
+    assert f"{summary['episodes']} episodes; nothing to resume" in out
+    assert f"summary: {run}/summary.json" in out
     # "returns immediately": no new event file, no new metrics line, nothing rewritten (resume() in train.py)
     assert _snapshot(run) == before
+
+
+def test_finished_summary_is_none_for_an_unfinished_run(tmp_path, finished_run):
+    run = tmp_path / "run"
+    shutil.copytree(finished_run, run)
+    (run / "summary.json").unlink()  # as after a crash: checkpoints but no summary yet
+    assert train.finished_summary(run) is None  # finished_summary() docstring
 
 
 def test_resume_without_checkpoint_is_one_line_exit_2(tmp_path, finished_run, capsys):
@@ -408,3 +420,202 @@ def test_bundled_config_loads_and_builds_its_env(path):
         assert st.rewards.shape == (1, env.spec.num_agents)  # TeamEnv Shape section
     finally:
         env.close()
+
+
+# ---------------------------------------------------------------------- 6. Ctrl-C, piped output, file modes
+def test_interrupt_between_steps_saves_a_checkpoint_and_resume_finishes(tmp_path):
+    from marl_core.policy import safe_torch_load
+
+    out = tmp_path / "run"
+
+    def stop_at_150(step: int, total: int, last: dict | None) -> None:  # the progress callback, after a step
+        if step >= 150:
+            raise KeyboardInterrupt
+
+    with pytest.raises(train.TrainingInterrupted) as info:
+        train.run(parse_config(_tiny()), out, progress=stop_at_150)
+    err = info.value
+    assert isinstance(err, KeyboardInterrupt)  # TrainingInterrupted docstring: still an interrupt
+    # num_envs 2: steps go 2 at a time, so the loop stops at exactly 150 (train.py module docstring: a
+    # KeyboardInterrupt from the progress callback is handled between steps, where a checkpoint is saved)
+    assert (err.env_steps, err.total_steps, err.saved) == (150, 400, True)
+    assert err.checkpoint == out / "checkpoints" / "last.pt" and err.checkpoint_steps == 150
+    assert safe_torch_load(err.checkpoint, "checkpoint")["counters"]["env_steps"] == 150
+    assert not (out / "summary.json").exists()
+    summary = train.resume(out)  # the saved checkpoint is a normal one
+    assert summary["env_steps"] == 400
+    assert _metric_steps(out) == [200, 400]  # every evaluation once (train.py docstring)
+
+
+def test_interrupt_inside_a_step_keeps_the_last_periodic_checkpoint(tmp_path, monkeypatch):
+    """An interrupt in the middle of a step (here: in the update) must not save a checkpoint there."""
+    out = tmp_path / "run"
+    real = train.linear_schedule
+
+    def schedule(step, *args):  # called by the loop just before an update round (train.py _loop)
+        if step >= 250:
+            raise KeyboardInterrupt
+        return real(step, *args)
+
+    monkeypatch.setattr(train, "linear_schedule", schedule)
+    with pytest.raises(train.TrainingInterrupted) as info:
+        train.run(parse_config(_tiny()), out)
+    err = info.value
+    # checkpoint_every 200 in _tiny(): the last periodic checkpoint is at 200; the interrupt came mid-step
+    assert err.saved is False and err.checkpoint_steps == 200 and err.env_steps >= 250
+
+
+def test_cli_interrupt_is_one_line_with_the_resume_command_exit_130(tmp_path, monkeypatch, capsys):
+    from marl_core.hints import command
+
+    cfg = _write_yaml(tmp_path / "tiny.yaml", _tiny())
+    out = tmp_path / "run"
+    real_run = train.run
+
+    def run_until_interrupted(cfg, out, progress=None):
+        def progress_then_stop(step, total, last):
+            if progress is not None:
+                progress(step, total, last)
+            if step >= 100:
+                raise KeyboardInterrupt
+        return real_run(cfg, out, progress=progress_then_stop)
+
+    monkeypatch.setattr(train, "run", run_until_interrupted)
+    assert main(["train", str(cfg), "--out", str(out), "--quiet"]) == 130  # cli.py docstring: Ctrl-C, 130
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err  # one line (cli.py docstring)
+    assert f"checkpoint saved: {out / 'checkpoints' / 'last.pt'} (step 100)" in err
+    assert err.strip().endswith(f"resume with: {command()} train --resume {out}")
+
+
+def test_cli_interrupt_before_any_checkpoint_says_there_is_nothing_to_resume(tmp_path, monkeypatch, capsys):
+    cfg = _write_yaml(tmp_path / "tiny.yaml", _tiny())
+    out = tmp_path / "run"
+
+    def interrupted_while_building(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(train, "run", interrupted_while_building)
+    assert main(["train", str(cfg), "--out", str(out)]) == 130
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and "before anything was written" in err  # cli.py _Interrupted
+
+
+def test_sigint_to_a_real_train_process(tmp_path):
+    """Ctrl-C on a real ``marl-core train``: one line naming the saved checkpoint and the resume command,
+    exit status 130, no traceback."""
+    from marl_core.policy import safe_torch_load
+
+    data = _tiny()
+    data["train"]["total_steps"] = 1_000_000  # far more than the test waits for
+    cfg = _write_yaml(tmp_path / "long.yaml", data)
+    run = tmp_path / "run"
+    proc = subprocess.Popen(_cli_command("train", str(cfg), "--out", str(run)), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        first = proc.stdout.readline()  # piped: one line per evaluation (cli.py docstring)
+        assert first.startswith("step 200/1000000"), first + proc.stderr.read()
+        proc.send_signal(signal.SIGINT)
+        stdout, stderr = proc.communicate(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 130, stderr  # cli.py docstring
+    lines = stderr.strip().splitlines()
+    assert len(lines) == 1 and "Traceback" not in stderr, stderr
+    ckpt = run / "checkpoints" / "last.pt"
+    steps = safe_torch_load(ckpt, "checkpoint")["counters"]["env_steps"]
+    assert f"checkpoint saved: {ckpt} (step {steps})" in lines[0]
+    assert lines[0].endswith(f"train --resume {run}")
+    assert steps >= 200 and not (run / "summary.json").exists()
+
+
+def test_piped_stdout_gets_one_plain_line_per_evaluation(tmp_path):
+    data = _tiny()
+    data["train"].update(total_steps=600, eval_every=200)
+    cfg = _write_yaml(tmp_path / "tiny.yaml", data)
+    run = tmp_path / "run"
+    # no --quiet and log.progress true: only the missing terminal makes the lines plain (cli.py _Progress)
+    done = subprocess.run(_cli_command("train", str(cfg), "--out", str(run)), capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0, done.stderr
+    lines = done.stdout.splitlines()
+    progress = [line for line in lines if line.startswith("step ")]
+    # eval_every 200, total 600: evaluations at 200, 400, 600 (train.py loop), each printed once, in order,
+    # and all of them before the final table (printed as they happen, not at the end)
+    assert [line.split()[1] for line in progress] == ["200/600", "400/600", "600/600"]
+    assert lines.index(progress[-1]) < next(i for i, line in enumerate(lines) if line.startswith("run: "))
+    for line in progress:
+        for word in ("elapsed", "steps/s", "eval return", "efficiency", "equality", "sustainability", "peace"):
+            assert word in line, line
+    assert "\x1b[" not in done.stdout  # no terminal control codes (a progress bar) in piped output
+
+
+def _usual_mode() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+def test_every_file_of_a_run_has_the_usual_mode(finished_run):
+    files = [p for p in finished_run.rglob("*") if p.is_file()]
+    assert {"config.yaml", "summary.json", "metrics.jsonl", "last.pt", "agent_0.pt"} <= {p.name for p in files}
+    # marl_core/files.py docstring: atomically written files get 0o666 less the umask, like any new file
+    # (metrics.jsonl is appended with open(): the reference)
+    modes = {p.name: p.stat().st_mode & 0o777 for p in files}
+    assert set(modes.values()) == {_usual_mode()}, modes
+
+
+# ---------------------------------------------------------------------- 7. a team of one agent
+@pytest.fixture(scope="module")
+def cartpole_run(tmp_path_factory):
+    data = yaml.safe_load((CONFIGS / "cartpole_idqn.yaml").read_text())
+    data["env"]["num_envs"] = 2
+    data["learner"].update(learning_starts=100, batch_size=16, buffer_size=2000)
+    data["train"].update(total_steps=300, eval_every=150, eval_episodes=2, checkpoint_every=150)
+    data["log"] = {"tensorboard": False, "gif_every": 0}
+    root = tmp_path_factory.mktemp("cartpole")
+    cfg = _write_yaml(root / "cartpole.yaml", data)
+    done = subprocess.run(_cli_command("train", str(cfg), "--out", str(root / "run")), capture_output=True,
+                          text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    return {"run": root / "run", "stdout": done.stdout}
+
+
+def _table_rows(stdout: str) -> list[str]:
+    """The first word of each line of the metrics table (the lines after its header 'learned ...')."""
+    lines = stdout.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.split()[:1] == ["learned"])
+    rows = []
+    for line in lines[start + 1:]:
+        if line.startswith(("summary:", "(", "GIF:")):
+            break
+        rows.append(line.split()[0])
+    return rows
+
+
+def test_single_agent_train_shows_returns_only(cartpole_run):
+    out = cartpole_run["stdout"]
+    # marl_core/cli.py docstring: a team of one is shown its returns only
+    assert _table_rows(out) == ["return"]
+    for word in ("efficiency", "equality", "sustainability", "peace"):
+        assert word not in out.split("(one agent")[0], word  # nor in the per-evaluation lines
+    assert "(one agent: the social metrics need a team" in out
+    summary = json.loads((cartpole_run["run"] / "summary.json").read_text())
+    assert SUMMARY_KEYS <= set(summary)  # the contract keys stay (marl_core/train.py docstring)
+    assert list(summary["returns"]) == ["agent_0"]  # gymnasium envs: a team of one (team_env.py)
+
+
+def test_single_agent_evaluate_shows_returns_only(cartpole_run, capsys):
+    assert main(["evaluate", str(cartpole_run["run"]), "--episodes", "2"]) == 0
+    assert _table_rows(capsys.readouterr().out) == ["return"]
+    assert main(["evaluate", str(cartpole_run["run"]), "--episodes", "2", "--json"]) == 0
+    res = json.loads(capsys.readouterr().out)
+    assert {"efficiency", "equality", "sustainability", "peace"} <= set(res)  # JSON keeps every key
+
+
+def test_team_train_table_keeps_the_social_metrics(finished_run, capsys):
+    assert main(["evaluate", str(finished_run)]) == 0
+    assert _table_rows(capsys.readouterr().out) == ["return_mean", "efficiency", "equality", "sustainability",
+                                                   "peace"]
