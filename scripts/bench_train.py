@@ -244,7 +244,7 @@ def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
         (out / "checkpoints").mkdir()
         dump_config(cfg, out / "config.yaml")
         r.open_logs(purge_step=None)
-        r.measure_random()
+        r.measure_baselines()
         clock = _Clock(warmup)
         _instrument(r, clock)
         t_train = time.perf_counter()
