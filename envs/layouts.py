@@ -21,8 +21,8 @@ Bundled layouts (``bundled_layouts()``), each drawn for this project:
 name                  size       spawns  what it holds
 ====================  =========  ======  =================================================================
 ``harvest_tiny``      9 x 9      4       one lopsided patch of 12 cells (tests)
-``harvest_small``     15 x 22    6       a large blob (20 cells) beside a ring (16), a band (8) and two
-                                         clumps (5, 6): 55 cells
+``harvest_small``     15 x 22    6       a large blob (25 cells) beside a thick ring (32), a double band
+                                         (18) and two small clumps (4, 3): 82 cells
 ``harvest_standard``  20 x 36    10      two large patches (26, 31), two rings, a wide block, bands and
                                          clumps of 6 to 18 cells: 146 cells
 ``cleanup_tiny``      6 x 11     4       a stream down the middle, a plot of 4 cells on each bank (tests)
