@@ -20,8 +20,8 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       gamma: 0.99
       lr: 5.0e-4
       batch_size: 64
-      buffer_size: 100000
-      learning_starts: 2000
+      replay_size: 100000
+      warmup_steps: 2000
       train_every: 1
       updates_per_round: 1
       lr_end: null
@@ -146,7 +146,9 @@ def _not_allowed(key: str, value: Any, allowed: str) -> str:
 
 
 # Keys that an earlier version accepted under another name: the old name is refused with the new one.
-RENAMED: dict[str, str] = {"learner.priority_beta0": "learner.priority_beta_start"}
+RENAMED: dict[str, str] = {"learner.priority_beta0": "learner.priority_beta_start",
+                           "learner.learning_starts": "learner.warmup_steps",
+                           "learner.buffer_size": "learner.replay_size"}
 
 
 def _unknown(key: str, prefix: str, candidates: Iterable[str]) -> str:
@@ -309,9 +311,9 @@ class _LearnerBase(BaseModel):
     gamma: float = _gamma(...)
     lr: float = _lr(..., "networks")
     batch_size: _Int = _batch_size(...)
-    buffer_size: _PositiveInt = Field(100_000, description="joint env steps kept in replay (oldest dropped "
+    replay_size: _PositiveInt = Field(100_000, description="joint env steps kept in replay (oldest dropped "
                                      "first)")
-    learning_starts: _Int = Field(2000, ge=0, description="env steps collected before the first update")
+    warmup_steps: _Int = Field(2000, ge=0, description="env steps collected before the first update")
     train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds")
     updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round")
     lr_end: float | None = Field(None, gt=0.0, description="learning rate reached at the end of a linear "

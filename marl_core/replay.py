@@ -150,7 +150,7 @@ class Replay:
     """Ring buffer of joint transitions of ``num_envs`` env copies with ``num_agents`` agents each.
 
     Args:
-        capacity: joint transitions in total over all copies (config key ``learner.buffer_size``).
+        capacity: joint transitions in total over all copies (config key ``learner.replay_size``).
         num_envs: number of env copies ``B`` stepped together.
         num_agents: agents per copy ``N``.
         obs_shape, obs_dtype: one agent's observation (uint8 for the grid games, float32 for vector envs).
@@ -181,13 +181,13 @@ class Replay:
                "a number in [0, 1]")
         _check("replay alpha", alpha, isinstance(alpha, numbers.Real) and alpha >= 0.0, "a number >= 0")
         _check("replay eps", eps, isinstance(eps, numbers.Real) and eps > 0.0, "a number > 0")
-        _check("learner.buffer_size", capacity, isinstance(capacity, (int, np.integer)) and capacity >= 1,
+        _check("learner.replay_size", capacity, isinstance(capacity, (int, np.integer)) and capacity >= 1,
                "an integer >= 1")
         slots = int(capacity) // int(num_envs)
         if slots < n_step + 2:
             raise ConfigError(
-                f"learner.buffer_size = {capacity} gives {slots} slots per env copy with num_envs = {num_envs};"
-                f" expected at least n_step + 2 = {n_step + 2} per copy (learner.buffer_size >= "
+                f"learner.replay_size = {capacity} gives {slots} slots per env copy with num_envs = {num_envs};"
+                f" expected at least n_step + 2 = {n_step + 2} per copy (learner.replay_size >= "
                 f"{(n_step + 2) * num_envs})")
         self.capacity = int(capacity)
         self.num_envs = B = int(num_envs)

@@ -140,7 +140,7 @@ class _Run:
         state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
         self.keep_state = state_space is not None
         self.replay = Replay(
-            capacity=L.buffer_size, num_envs=e.num_envs, num_agents=self.spec.num_agents,
+            capacity=L.replay_size, num_envs=e.num_envs, num_agents=self.spec.num_agents,
             obs_shape=self.spec.obs_shape, obs_dtype=self.spec.obs_dtype, num_actions=self.spec.num_actions,
             state_shape=None if state_space is None else tuple(state_space.shape),
             state_dtype=None if state_space is None else state_space.dtype,
@@ -286,7 +286,7 @@ class _Run:
             self.env_steps += B
             self.vec_steps += 1
             self.episodes += int(st.end.sum())
-            if (self.env_steps >= L.learning_starts and self.vec_steps % L.train_every == 0
+            if (self.env_steps >= L.warmup_steps and self.vec_steps % L.train_every == 0
                     and len(self.replay) >= L.batch_size):
                 beta = linear_schedule(self.env_steps, getattr(L, "priority_beta_start", 1.0), 1.0, T.total_steps)
                 self.learner.schedule(self.env_steps)

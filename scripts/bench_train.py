@@ -36,7 +36,7 @@ in the same process:
 
 Method. The run's config is the library's defaults for the learner (network sizes, batch size, buffer,
 ``train_every``, ``updates_per_round``, torch threads) with: the env above and ``num_envs`` (default 8,
-the library default); ``learning_starts`` = the batch size rounded up to whole vector steps (with
+the library default); ``warmup_steps`` = the batch size rounded up to whole vector steps (with
 ``n_step: 1`` a transition can be sampled as soon as it is recorded), and the warm-up ends
 ``--warmup-updates`` update rounds later (default 3), so first-call costs such as Adam's state
 allocation fall outside the window and every vector step of the window runs its update round;
@@ -100,7 +100,7 @@ def _round_up(value: int, multiple: int) -> int:
 
 
 def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max_cycles: int | None,
-                seed: int, learning_starts: int = 0, total_steps: int = 1):
+                seed: int, warmup_steps: int = 0, total_steps: int = 1):
     """The run config of one measurement (see the module docstring)."""
     from marl_core.config import parse_config
 
@@ -109,7 +109,7 @@ def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max
         params["max_cycles"] = max_cycles
     return parse_config({
         "env": {"name": GAME, "params": params, "num_envs": num_envs},
-        "learner": {"kind": kind, "learning_starts": learning_starts},
+        "learner": {"kind": kind, "warmup_steps": warmup_steps},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
                   "eval_episodes": 1, "baselines": ["random"]},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
@@ -117,7 +117,7 @@ def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max
 
 
 def plan(learner_cfg: Any, num_envs: int, warmup_updates: int) -> tuple[int, int]:
-    """(learning_starts, warm-up env steps): learning starts as soon as replay holds a batch (with
+    """(warmup_steps, warm-up env steps): learning starts as soon as replay holds a batch (with
     ``n_step: 1`` a transition is sampleable once recorded), and the warm-up ends ``warmup_updates`` update
     rounds later; both are multiples of ``num_envs``."""
     B = num_envs
@@ -342,7 +342,7 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
         steps = window_steps(base.learner, B, bare["median"], args.seconds)
         chosen = f"from the bare update rate, for about {args.seconds:g} s"
     cfg = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
-                      learning_starts=starts, total_steps=warmup + steps)
+                      warmup_steps=starts, total_steps=warmup + steps)
     loop = measure_loop(cfg, warmup)
     clock, window = loop["clock"], loop["window_s"]
     sec = clock.seconds
@@ -406,7 +406,7 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
                    "from_env_steps": clock.steps0, "to_env_steps": cfg.train.total_steps,
                    "updates": updates, "episodes_ended": loop["episodes_total"] - clock.episodes0},
         "warmup": {"env_steps": clock.steps0, "seconds": round(loop["warmup_s"], 3),
-                   "updates": clock.updates0, "learning_starts": L.learning_starts},
+                   "updates": clock.updates0, "warmup_steps": L.warmup_steps},
         "excluded_after_window_s": {**{k: round(v, 3) for k, v in clock.after.items()},
                                     "all": round(loop["after_window_s"], 3)},
         "setup_s": round(loop["setup_s"], 3),
@@ -420,7 +420,7 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
         "stated_config": {"num_envs": cfg.env.num_envs, "batch_size": L.batch_size,
                           "train_every": L.train_every, "updates_per_round": L.updates_per_round,
                           "hidden": L.hidden, "conv_channels": L.conv_channels,
-                          "buffer_size": L.buffer_size, "learning_starts": L.learning_starts,
+                          "replay_size": L.replay_size, "warmup_steps": L.warmup_steps,
                           "total_steps": cfg.train.total_steps, "eval_every": cfg.train.eval_every,
                           "checkpoint_every": cfg.train.checkpoint_every,
                           "log_every": cfg.log.log_every, "max_cycles": cfg.env.params["max_cycles"]},

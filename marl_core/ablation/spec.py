@@ -68,6 +68,7 @@ from typing import Any
 import envs
 from envs.params import nearest
 from marl_core.config import (
+    RENAMED,
     RunConfig,
     config_hash,
     parse_config,
@@ -234,6 +235,8 @@ def _check_key(key: Any, where: str, base: dict[str, Any]) -> str:
         raise ConfigError(f"{where}: {_SEED_KEY} is set from 'seeds'; list the seeds there instead")
     if key in _keys():
         return key
+    if key in RENAMED:
+        raise ConfigError(f"{where}: key '{key}' was renamed: use '{RENAMED[key]}'")
     if key.startswith(_PARAMS) and all(key[len(_PARAMS):].split(".")):
         return key  # the game's table checks the name when the run's config is parsed
     candidates = [*valid_keys(), *_game_param_keys(base)]

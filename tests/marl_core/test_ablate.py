@@ -43,7 +43,7 @@ def _tiny_base() -> dict:
     base = copy.deepcopy(_quick()["base"])
     base["env"]["num_envs"] = 2
     base["env"]["params"]["max_cycles"] = 50
-    base["learner"].update(learning_starts=100, batch_size=16, buffer_size=1000)
+    base["learner"].update(warmup_steps=100, batch_size=16, replay_size=1000)
     base["train"].update(total_steps=200, eval_every=200, checkpoint_every=200, eval_episodes=1)
     base["log"]["tensorboard"] = False
     return base

@@ -249,6 +249,16 @@ def test_an_unknown_key_names_where_it_is_and_the_nearest_keys(spec, where):
     assert str(info.value) == f"{where}: unknown key 'learner.gama'; did you mean 'learner.gamma'?"
 
 
+@pytest.mark.parametrize(("old", "new"), [("learner.buffer_size", "learner.replay_size"),
+                                          ("learner.learning_starts", "learner.warmup_steps"),
+                                          ("learner.priority_beta0", "learner.priority_beta_start")])
+def test_a_renamed_key_names_its_new_name(old, new):
+    # marl_core/config.py RENAMED: keys an earlier version took are refused with the name that replaced them
+    with pytest.raises(ConfigError) as info:
+        parse_spec(_spec(axes={old: [1, 2]}))
+    assert str(info.value) == f"axes: key '{old}' was renamed: use '{new}'"
+
+
 def test_an_unknown_section_is_compared_with_every_key():
     with pytest.raises(ConfigError, match=r"set: unknown key 'lerner\.lr'; did you mean 'learner\.lr'"):
         parse_spec(_spec(set={"lerner.lr": 1e-3}))

@@ -99,8 +99,8 @@ def _tiny(**train):
     return parse_config({
         "env": {"name": "harvest_v0", "num_envs": 2,
                 "params": {"layout": "harvest_tiny", "num_agents": 2, "view_radius": 2, "max_cycles": 30}},
-        "learner": {"kind": "idqn", "hidden": 16, "conv_channels": [4], "batch_size": 8, "learning_starts": 20,
-                    "buffer_size": 500},
+        "learner": {"kind": "idqn", "hidden": 16, "conv_channels": [4], "batch_size": 8, "warmup_steps": 20,
+                    "replay_size": 500},
         "train": {"total_steps": 120, "eval_every": 120, "checkpoint_every": 120, "eval_episodes": 3, **train},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False}})
 

@@ -174,6 +174,9 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
 @pytest.mark.parametrize("data, overrides, message", [
     ({"learner": {"gama": 0.9}}, [], r"^unknown key 'learner\.gama'; did you mean 'learner\.gamma'\?$"),
     ({"lerner": {}}, [], r"^unknown key 'lerner'; did you mean 'learner'\?$"),
+    ({"learner": {"buffer_size": 10}}, [], r"^key 'learner\.buffer_size' was renamed: use 'learner\.replay_size'$"),
+    ({"learner": {"learning_starts": 10}}, [],
+     r"^key 'learner\.learning_starts' was renamed: use 'learner\.warmup_steps'$"),
     ({"learner": {"priority_beta0": 0.4}}, [],
      r"^key 'learner\.priority_beta0' was renamed: use 'learner\.priority_beta_start'$"),
     ({}, ["learner.priority_beta0=0.4"],
@@ -313,7 +316,7 @@ SECTION_NAMES = ["env", "learner", "train", "log"]
 
 
 @pytest.mark.parametrize("typed, names, expected", [
-    ("learning_rate", LEARNER_KEYS, ["lr"]),  # a synonym (envs/params.py ALIASES), not learning_starts
+    ("learning_rate", LEARNER_KEYS, ["lr"]),  # a synonym (envs/params.py ALIASES)
     ("discount", LEARNER_KEYS, ["gamma"]),  # a synonym
     ("num_agent", HARVEST_PARAMS, ["num_agents"]),  # a prefix, not tag_length
     ("gama", LEARNER_KEYS, ["gamma"]),  # one letter missing

@@ -46,8 +46,8 @@ def _matrix_config(params: dict, seed: int, total_steps: int, **learner) -> dict
     """A small idqn run on matrix_v0: 32 copies, nets of width 16-32, one evaluation at the end (ours)."""
     return {
         "env": {"name": "matrix_v0", "num_envs": 32, "params": params},
-        "learner": {"kind": "idqn", "hidden": 16, "batch_size": 64, "lr": 5e-3, "learning_starts": 256,
-                    "buffer_size": 4096, "train_every": 1, "updates_per_round": 2, "target_update_every": 50,
+        "learner": {"kind": "idqn", "hidden": 16, "batch_size": 64, "lr": 5e-3, "warmup_steps": 256,
+                    "replay_size": 4096, "train_every": 1, "updates_per_round": 2, "target_update_every": 50,
                     "eps_start": 1.0, "eps_end": 0.1, "eps_decay_steps": 2048, **learner},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps, "eval_episodes": 2,
                   "checkpoint_every": total_steps},
@@ -197,7 +197,7 @@ def test_a_bundled_game_with_payoffs_stays_an_error(tmp_path, where):
 def test_a_custom_run_config_round_trips_and_resumes(tmp_path):
     """A run made with the payoffs override writes game: custom to config.yaml; that file loads back to the same
     config (same hash) and the finished run resumes (returns its summary)."""
-    base = _matrix_config({"max_cycles": 1}, seed=0, total_steps=256, learning_starts=64)
+    base = _matrix_config({"max_cycles": 1}, seed=0, total_steps=256, warmup_steps=64)
     path = tmp_path / "base.yaml"
     path.write_text(yaml.safe_dump(base, sort_keys=False))
     cfg = load_config(path, ["env.params.payoffs=[3,3,0,5,5,0,1,1]"])

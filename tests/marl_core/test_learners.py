@@ -44,7 +44,7 @@ def run_config(game: str, learner: dict, log: dict | None = None, num_agents: in
     and checkpoints at 150 and 300 (kept small so the whole file stays fast)."""
     return {
         "env": {"name": game, "params": game_params(game, num_agents), "num_envs": 2},
-        "learner": {"learning_starts": 100, "train_every": 3, "batch_size": 16, "buffer_size": 2000, **NET,
+        "learner": {"warmup_steps": 100, "train_every": 3, "batch_size": 16, "replay_size": 2000, **NET,
                     **learner},
         "train": {"total_steps": 300, "eval_every": 150, "eval_episodes": 2,
                   "checkpoint_every": 150, "seed": 0},

@@ -93,7 +93,7 @@ def test_sum_tree_of_one_leaf_and_bad_values():
 
 # ---------------------------------------------------------------------------------------------- errors
 def test_capacity_too_small_names_the_config_key():
-    with pytest.raises(ConfigError, match=r"learner\.buffer_size = 9 gives 4 slots.*n_step \+ 2 = 5.*>= 10"):
+    with pytest.raises(ConfigError, match=r"learner\.replay_size = 9 gives 4 slots.*n_step \+ 2 = 5.*>= 10"):
         Replay(9, 2, 1, (2,), np.float32, 4, n_step=3)
 
 

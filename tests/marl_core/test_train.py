@@ -42,7 +42,7 @@ def _tiny(kind: str = "idqn", seed: int = 0) -> dict:
         "env": {"name": "harvest_v0", "num_envs": 2,
                 "params": {"layout": "harvest_tiny", "num_agents": 2, "view_radius": 2, "max_cycles": 50}},
         "learner": {"kind": kind, "hidden": 16, "conv_channels": [4, 8], "batch_size": 16,
-                    "learning_starts": 100, "buffer_size": 2000, "train_every": 2},
+                    "warmup_steps": 100, "replay_size": 2000, "train_every": 2},
         "train": {"total_steps": 400, "seed": seed, "eval_every": 200, "eval_episodes": 2,
                   "checkpoint_every": 200},
         "log": {"tensorboard": False, "gif_every": 0},
@@ -572,7 +572,7 @@ def test_every_file_of_a_run_has_the_usual_mode(finished_run):
 def cartpole_run(tmp_path_factory):
     data = yaml.safe_load((CONFIGS / "cartpole_idqn.yaml").read_text())
     data["env"]["num_envs"] = 2
-    data["learner"].update(learning_starts=100, batch_size=16, buffer_size=2000)
+    data["learner"].update(warmup_steps=100, batch_size=16, replay_size=2000)
     data["train"].update(total_steps=300, eval_every=150, eval_episodes=2, checkpoint_every=150)
     data["log"] = {"tensorboard": False, "gif_every": 0}
     root = tmp_path_factory.mktemp("cartpole")
