@@ -388,9 +388,9 @@ class MADDPGConfig(_LearnerBase):
                                                                    "(Lowe et al. 2017); state = the env's "
                                                                    "state() (our grid games: a plane per "
                                                                    "agent, env.params.state_layout); auto "
-                                                                   "= observations, measured: tied on "
-                                                                   "harvest, far ahead on cleanup at 100k "
-                                                                   "steps, and faster "
+                                                                   "= observations, measured: ahead on "
+                                                                   "harvest and on cleanup at 100k steps, "
+                                                                   "and faster "
                                                                    "(scripts/compare_critic_inputs.py)")
     actor_lr: float = Field(1e-3, gt=0.0, description="Adam learning rate of the actors")
     tau: float = Field(0.01, gt=0.0, le=1.0, description="Polyak step of the target networks per update")
