@@ -121,15 +121,25 @@ class CentralCritic(nn.Module):
         return torch.cat([self._run(n, x, joint) for n in self.nets], dim=1)
 
     def own_values(self, x: torch.Tensor, joints: torch.Tensor) -> torch.Tensor:
-        """Agent i's value under its own joint action ``joints[i]``: (N, K, N*A) -> (K, N)."""
+        """Agent i's value under its own joint action ``joints[i]``: (N, K, N*A) -> (K, N).
+
+        For the actor step: the encoder of ``x`` runs without gradients, since the actors' gradient flows
+        only through the actions; gradients reach ``joints`` through the MLP alone.
+        """
         N, K = joints.shape[:2]
         if self.shared:  # encode x once; only the actions differ between the N blocks
             net = self.nets[0]
-            h = net["enc"](x)
+            with torch.no_grad():
+                h = net["enc"](x)
             hs = h.unsqueeze(0).expand(N, *h.shape).reshape(N * K, -1)
             q = net["mlp"](torch.cat([hs, joints.reshape(N * K, -1)], dim=1)).reshape(N, K, N)
             return q.diagonal(dim1=0, dim2=2)  # (K, N): block i, output i
-        return torch.cat([self._run(n, x, joints[i]) for i, n in enumerate(self.nets)], dim=1)
+        out = []
+        for i, n in enumerate(self.nets):
+            with torch.no_grad():
+                h = n["enc"](x)
+            out.append(n["mlp"](torch.cat([h, joints[i]], dim=1)))
+        return torch.cat(out, dim=1)
 
     def extra_repr(self) -> str:
         return f"num_agents={self.num_agents}, shared={self.shared}"
@@ -230,11 +240,15 @@ class MADDPG:
         sample = gumbel_softmax_st(logits, cfg.gumbel_temperature, self.gen)
         eye = torch.eye(N).view(N, 1, N, 1)  # block i replaces agent i's action
         joints = (eye * sample.unsqueeze(0) + (1 - eye) * actions.unsqueeze(0)).reshape(N, K, N * A)
-        own_q = self.critic.own_values(x, joints)
-        actor_loss = -own_q.mean() + cfg.actor_reg * (logits ** 2).mean()
-        self.actor_opt.zero_grad(set_to_none=True)
-        actor_loss.backward()
-        self.critic_opt.zero_grad(set_to_none=True)  # the actor step must not leave gradients on the critic
+        self.critic.requires_grad_(False)  # frozen: the actor step computes no gradient for the critic
+        try:
+            own_q = self.critic.own_values(x, joints)
+            actor_loss = -own_q.mean() + cfg.actor_reg * (logits ** 2).mean()
+            self.actor_opt.zero_grad(set_to_none=True)
+            actor_loss.backward()
+        finally:
+            self.critic.requires_grad_(True)
+        self.critic_opt.zero_grad(set_to_none=True)  # no gradient stays on the critic for a later step
         self._clip(self.actors.groups())
         self.actor_opt.step()
 

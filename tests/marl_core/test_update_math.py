@@ -325,6 +325,16 @@ def test_maddpg_actor_step_is_the_straight_through_gumbel_policy_gradient(critic
 
 # ---------------------------------------------------------------------------------------------- critic vs actor
 @pytest.mark.parametrize("critic", ["shared", "per_agent"])
+def test_the_critic_is_trainable_again_after_the_actor_step(critic):
+    # maddpg.update freezes the critic for the actor step only (no critic gradient is computed there);
+    # the next critic step must find every parameter trainable again (common practice, no source)
+    learner = build_maddpg(critic=critic)
+    learner.update(make_batch(seed=2))
+    assert all(p.requires_grad for p in learner.critic.parameters())
+    assert not any(p.requires_grad for p in learner.target_critic.parameters())
+
+
+@pytest.mark.parametrize("critic", ["shared", "per_agent"])
 def test_the_actor_step_leaves_the_critic_alone(critic):
     learner = build_maddpg(critic=critic)
     batch = make_batch(seed=5)
