@@ -112,8 +112,12 @@ class CentralCritic(nn.Module):
         self.nets = nn.ModuleList(net(o) for o in outs)
 
     @staticmethod
-    def _run(net: nn.Module, x: torch.Tensor, joint: torch.Tensor) -> torch.Tensor:
-        return net["mlp"](torch.cat([net["enc"](x), joint], dim=1))
+    def _head(net: nn.Module, h: torch.Tensor, joint: torch.Tensor) -> torch.Tensor:
+        return net["mlp"](torch.cat([h, joint], dim=1))
+
+    @classmethod
+    def _run(cls, net: nn.Module, x: torch.Tensor, joint: torch.Tensor) -> torch.Tensor:
+        return cls._head(net, net["enc"](x), joint)
 
     def forward(self, x: torch.Tensor, joint: torch.Tensor) -> torch.Tensor:
         if self.shared:
@@ -132,14 +136,11 @@ class CentralCritic(nn.Module):
             with torch.no_grad():
                 h = net["enc"](x)
             hs = h.unsqueeze(0).expand(N, *h.shape).reshape(N * K, -1)
-            q = net["mlp"](torch.cat([hs, joints.reshape(N * K, -1)], dim=1)).reshape(N, K, N)
+            q = self._head(net, hs, joints.reshape(N * K, -1)).reshape(N, K, N)
             return q.diagonal(dim1=0, dim2=2)  # (K, N): block i, output i
-        out = []
-        for i, n in enumerate(self.nets):
-            with torch.no_grad():
-                h = n["enc"](x)
-            out.append(n["mlp"](torch.cat([h, joints[i]], dim=1)))
-        return torch.cat(out, dim=1)
+        with torch.no_grad():
+            hs = [n["enc"](x) for n in self.nets]
+        return torch.cat([self._head(n, h, joints[i]) for i, (n, h) in enumerate(zip(self.nets, hs))], dim=1)
 
     def extra_repr(self) -> str:
         return f"num_agents={self.num_agents}, shared={self.shared}"

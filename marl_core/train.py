@@ -238,12 +238,12 @@ class _Run:
     # -- the loop
     def train(self) -> dict[str, Any]:
         """Train to ``train.total_steps`` and finish; on Ctrl-C see the module docstring."""
-        safe = [True]  # False while a step is under way: a checkpoint then could mix two steps
+        self._between_steps = True  # False while a step is under way: a checkpoint then could mix two steps
         with _DeferSigint() as sigint:
             try:
-                self._loop(sigint, safe)
+                self._loop(sigint)
             except KeyboardInterrupt:
-                raise self._interrupted(safe[0]) from None
+                raise self._interrupted(self._between_steps) from None
         return self.finish()
 
     def _interrupted(self, safe: bool) -> TrainingInterrupted:
@@ -261,7 +261,7 @@ class _Run:
         return TrainingInterrupted(self.out, self.env_steps, self.cfg.train.total_steps,
                                    path if path.is_file() else None, steps, saved=safe)
 
-    def _loop(self, sigint: _DeferSigint, safe: list[bool]) -> None:
+    def _loop(self, sigint: _DeferSigint) -> None:
         cfg, L, T = self.cfg, self.cfg.learner, self.cfg.train
         B = cfg.env.num_envs
         col = Collector(self.env, T.seed + self.env_steps)
@@ -277,7 +277,7 @@ class _Run:
         while self.env_steps < T.total_steps:
             if sigint.requested:
                 raise KeyboardInterrupt
-            safe[0] = False
+            self._between_steps = False
             actions = self.learner.act(col.obs, explore=True, env_steps=self.env_steps)
             st = col.step(actions)
             self.replay.add(actions, st.rewards, st.terminated, st.end, st.obs,
@@ -308,7 +308,7 @@ class _Run:
             if self.env_steps >= next_ckpt or self.env_steps >= T.total_steps:
                 next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
                 self.save_checkpoint()
-            safe[0] = True
+            self._between_steps = True
             if self.progress is not None:
                 self.progress(self.env_steps, T.total_steps, self.last_eval)
 
