@@ -100,7 +100,7 @@ def _round_up(value: int, multiple: int) -> int:
 
 
 def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max_cycles: int | None,
-                seed: int, warmup_steps: int = 0, total_steps: int = 1):
+                seed: int, warmup_steps: int = 0, total_steps: int = 1, torch_threads: int = 1):
     """The run config of one measurement (see the module docstring)."""
     from marl_core.config import parse_config
 
@@ -109,7 +109,7 @@ def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max
         params["max_cycles"] = max_cycles
     return parse_config({
         "env": {"name": GAME, "params": params, "num_envs": num_envs},
-        "learner": {"kind": kind, "warmup_steps": warmup_steps},
+        "learner": {"kind": kind, "warmup_steps": warmup_steps, "torch_threads": torch_threads},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
                   "eval_episodes": 1, "baselines": ["random"]},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
@@ -333,7 +333,8 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
     from marl_core.config import config_to_dict
 
     B = args.num_envs
-    base = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed)
+    base = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
+                       torch_threads=args.torch_threads)
     bare = measure_bare(base, args.bare_seconds)
     starts, warmup = plan(base.learner, B, args.warmup_updates)
     if args.steps:
@@ -342,7 +343,7 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
         steps = window_steps(base.learner, B, bare["median"], args.seconds)
         chosen = f"from the bare update rate, for about {args.seconds:g} s"
     cfg = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
-                      warmup_steps=starts, total_steps=warmup + steps)
+                      warmup_steps=starts, total_steps=warmup + steps, torch_threads=args.torch_threads)
     loop = measure_loop(cfg, warmup)
     clock, window = loop["clock"], loop["window_s"]
     sec = clock.seconds
@@ -488,6 +489,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--learners", type=_learner_list, default=list(LEARNERS),
                         help="comma-separated learners (default idqn,maddpg)")
     parser.add_argument("--seed", type=int, default=0, help="seed of the run and of the bare batch")
+    parser.add_argument("--torch-threads", type=positive(int), default=1,
+                        help="learner.torch_threads of the measured runs (default 1, the library default)")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     args = parser.parse_args(argv)
 
