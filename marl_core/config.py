@@ -21,6 +21,7 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       lr: 5.0e-4
       batch_size: 64
       replay_size: 100000
+      pack_replay: true
       warmup_steps: 2000
       train_every: 1
       updates_per_round: 1
@@ -109,7 +110,7 @@ from marl_core.errors import ConfigError
 from marl_core.files import atomic_write
 
 __all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "TrainConfig", "LogConfig",
-           "load_config", "parse_config", "apply_overrides", "config_to_dict", "dump_config",
+           "RewardConfig", "InequityAversion", "load_config", "parse_config", "apply_overrides", "config_to_dict", "dump_config",
            "schema_table", "valid_keys", "config_hash"]
 
 
@@ -313,6 +314,9 @@ class _LearnerBase(BaseModel):
     batch_size: _Int = _batch_size(...)
     replay_size: _PositiveInt = Field(100_000, description="joint env steps kept in replay (oldest dropped "
                                      "first)")
+    pack_replay: bool = Field(True, description="keep observations (and states) of 0s and 1s bit-packed in "
+                              "replay, 8 cells a byte, unpacked per sampled batch; other observations are "
+                              "stored as they are (false: plain uint8 store)")
     warmup_steps: _Int = Field(2000, ge=0, description="env steps collected before the first update")
     train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds")
     updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round")
@@ -445,6 +449,72 @@ class TrainConfig(BaseModel):
         return self
 
 
+IA_SMOOTHING = 0.965  # 0.99 * 0.975 (gamma * lambda); from memory of Hughes et al. 2018's settings
+_IA_KEYS = {"alpha": "disadvantageous-inequity weight (others ahead), a number >= 0",
+            "beta": "advantageous-inequity weight (ahead of others), a number >= 0",
+            "smoothing": f"decay of the smoothed reward e_i, a number in [0, 1) (default {IA_SMOOTHING})"}
+
+
+class InequityAversion(BaseModel):
+    """``reward.inequity_aversion``: Hughes et al. 2018's inequity-averse reward (marl_core.rewards)."""
+
+    model_config = _STRICT
+
+    alpha: float = Field(ge=0.0, description=_IA_KEYS["alpha"])
+    beta: float = Field(ge=0.0, description=_IA_KEYS["beta"])
+    smoothing: float = Field(IA_SMOOTHING, ge=0.0, lt=1.0, description=_IA_KEYS["smoothing"])
+
+
+def _number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and value == value \
+        and abs(value) != float("inf")
+
+
+class RewardConfig(BaseModel):
+    """What each agent learns from, computed from the env's rewards (``marl_core.rewards``); the metrics
+    always use the env's own rewards."""
+
+    model_config = _STRICT
+
+    prosocial: float = Field(0.0, ge=0.0, le=1.0, description="weight w of the team's mean reward: each "
+                             "agent learns from (1 - w) * its reward + w * the mean over agents (0: selfish, "
+                             "1: team reward)")
+    inequity_aversion: InequityAversion | None = Field(
+        None, description="null (off) or a mapping {alpha, beta, smoothing}: each agent's reward minus "
+        "alpha / (N-1) * how far others are ahead and beta / (N-1) * how far it is ahead, on rewards "
+        "smoothed as e = smoothing * e + r",
+        json_schema_extra={"allowed": "null or a mapping with alpha (>= 0), beta (>= 0) and smoothing "
+                                      "(in [0, 1), optional)", "type": "mapping | null"})
+
+    @field_validator("prosocial", mode="before")
+    @classmethod
+    def _whole_numbers(cls, value: Any) -> Any:
+        return float(value) if isinstance(value, int) and not isinstance(value, bool) else value
+
+    @field_validator("inequity_aversion", mode="before")
+    @classmethod
+    def _check_inequity_aversion(cls, value: Any) -> Any:
+        key = "reward.inequity_aversion"
+        if value is None:
+            return None
+        if not isinstance(value, dict):
+            raise _own_error(_not_allowed(key, value, "null or a mapping with alpha, beta and smoothing"))
+        for name in value:
+            if name not in _IA_KEYS:
+                raise _own_error(_unknown(f"{key}.{name}", f"{key}.", _IA_KEYS))
+        for name in ("alpha", "beta"):
+            if name not in value:
+                raise _own_error(f"{key}.{name} is missing: expected {_IA_KEYS[name]}")
+        out = {}
+        for name, v in value.items():
+            low_ok = _number(v) and v >= 0
+            if not low_ok or (name == "smoothing" and v >= 1):
+                raise _own_error(_not_allowed(f"{key}.{name}", v, _IA_KEYS[name].split(", ", 1)[1]
+                                              .split(" (default")[0]))
+            out[name] = float(v)
+        return out
+
+
 class LogConfig(BaseModel):
     """What a run writes besides metrics.jsonl and summary.json."""
 
@@ -468,6 +538,7 @@ class RunConfig(BaseModel):
                                                description="the learner; 'kind' picks its keys")
     train: TrainConfig = Field(default_factory=TrainConfig, description="the training schedule")
     log: LogConfig = Field(default_factory=LogConfig, description="what the run writes")
+    reward: RewardConfig = Field(default_factory=RewardConfig, description="what each agent learns from")
 
     @model_validator(mode="before")
     @classmethod
@@ -483,7 +554,8 @@ class RunConfig(BaseModel):
         return data
 
 
-SECTIONS: dict[str, Any] = {"env": EnvConfig, "learner": LEARNERS, "train": TrainConfig, "log": LogConfig}
+SECTIONS: dict[str, Any] = {"env": EnvConfig, "learner": LEARNERS, "train": TrainConfig, "log": LogConfig,
+                            "reward": RewardConfig}
 
 
 # ----------------------------------------------------------------------------------- schema listing
@@ -558,11 +630,13 @@ def _field_spec(model: type[BaseModel], name: str) -> tuple[str, str, str]:
     type_name, phrase, bounds = _describe(info.annotation, info.metadata)
     if "allowed" in extra:
         phrase = bounds = str(extra["allowed"])
-    return type_name, phrase, bounds
+    return extra.get("type", type_name), phrase, bounds
 
 
 def _default(model: type[BaseModel], name: str) -> Any:
     info = model.model_fields[name]
+    if info.is_required():
+        return None  # e.g. reward.inequity_aversion.alpha: required once the mapping is given
     return info.default_factory() if info.default_factory is not None else info.default
 
 
@@ -583,6 +657,9 @@ def schema_table() -> list[dict[str, Any]]:
     for section, model in SECTIONS.items():
         if section != "learner":
             rows.extend(_row(section, model, name, None) for name in model.model_fields)
+            if section == "reward":  # the keys of the inequity_aversion mapping, settable one by one
+                rows.extend(_row("reward.inequity_aversion", InequityAversion, name, None)
+                            for name in InequityAversion.model_fields)
             continue
         kinds = list(LEARNERS)
         rows.append({"key": "learner.kind", "type": "str", "default": "idqn",
@@ -872,7 +949,10 @@ def config_to_dict(cfg: RunConfig) -> dict[str, Any]:
 
 def config_hash(cfg: RunConfig) -> str:
     """A stable 12-hex-digit digest of the resolved config (same config, same hash, in any process)."""
-    text = json.dumps(config_to_dict(cfg), sort_keys=True, separators=(",", ":"), default=str)
+    data = config_to_dict(cfg)
+    if data["reward"] == RewardConfig().model_dump(mode="python"):
+        del data["reward"]  # added after the first release: configs that do not use it keep their hash
+    text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
 
 

@@ -50,6 +50,13 @@ segments and one uniform draw falls in each. Choices:
   reduces its per-agent TD errors, e.g. the mean of ``|delta_i|``); it adds ``eps`` and raises on negative or
   non-finite values. Leaves that are no longer ready (overwritten since the batch was drawn) are skipped.
 
+Bit packing. With ``pack_bits`` (the training loop turns it on when the observation space is uint8 with
+bounds 0 and 1, as on our grid games), each agent's observation, and the state, is stored flattened and
+packed eight cells to a byte with ``numpy.packbits`` and unpacked with ``numpy.unpackbits`` for each sampled
+batch, so batches are bit for bit those of the plain store at about an eighth of its observation bytes.
+Writing a value other than 0 or 1 into a packed store raises ``ValueError``. Observations that are not
+0/1 (float vectors, counts) keep the plain store.
+
 A second call of :meth:`Replay.start` (the env was reset without an episode end being reported) truncates
 every copy's episode at its last step: the current observation becomes that episode's final observation.
 
@@ -163,12 +170,13 @@ class Replay:
         alpha: priority exponent (prioritized only).
         eps: added to every priority magnitude (prioritized only).
         seed: seed of the buffer's own generator.
+        pack_bits: store observations (and the state) bit-packed; needs uint8 values that are 0 or 1.
     """
 
     def __init__(self, capacity: int, num_envs: int, num_agents: int, obs_shape: tuple[int, ...],
                  obs_dtype: Any, num_actions: int, state_shape: tuple[int, ...] | None = None,
                  state_dtype: Any = None, n_step: int = 1, gamma: float = 0.99, prioritized: bool = False,
-                 alpha: float = 0.6, eps: float = 1e-6, seed: int = 0) -> None:
+                 alpha: float = 0.6, eps: float = 1e-6, seed: int = 0, pack_bits: bool = False) -> None:
         _check("replay num_envs", num_envs, isinstance(num_envs, (int, np.integer)) and num_envs >= 1,
                "an integer >= 1")
         _check("replay num_agents", num_agents, isinstance(num_agents, (int, np.integer)) and num_agents >= 1,
@@ -211,9 +219,14 @@ class Replay:
             action_dtype = np.int16
         else:
             action_dtype = np.int32
-        self._obs = np.zeros((C, B, N, *self.obs_shape), dtype=self.obs_dtype)
+        self.pack_bits = bool(pack_bits)
+        if self.pack_bits:
+            for what, dtype in (("observations", self.obs_dtype), ("states", self.state_dtype)):
+                if dtype is not None and dtype != np.uint8:
+                    raise ValueError(f"replay: pack_bits needs uint8 {what} of 0s and 1s; got dtype {dtype}")
+        self._obs = np.zeros((C, B, N, *self._stored(self.obs_shape)), dtype=self.obs_dtype)
         self._state = (None if self.state_shape is None
-                       else np.zeros((C, B, *self.state_shape), dtype=self.state_dtype))
+                       else np.zeros((C, B, *self._stored(self.state_shape)), dtype=self.state_dtype))
         self._action = np.zeros((C, B, N), dtype=action_dtype)
         self._reward = np.zeros((C, B, N), dtype=np.float32)
         self._terminated = np.zeros((C, B, N), dtype=bool)
@@ -238,6 +251,26 @@ class Replay:
         return cls(capacity, num_envs, team.num_agents, team.obs_shape, team.obs_dtype, team.num_actions,
                    state_shape=None if state is None else tuple(state.shape),
                    state_dtype=None if state is None else state.dtype, **options)
+
+    # ------------------------------------------------------------------ bit packing
+    def _stored(self, shape: tuple[int, ...]) -> tuple[int, ...]:
+        """The stored shape of one observation (or state) of ``shape``: packed to bytes of 8 cells, or as is."""
+        return ((int(np.prod(shape, dtype=np.int64)) + 7) // 8,) if self.pack_bits else shape
+
+    def _pack(self, name: str, x: np.ndarray, lead: int) -> np.ndarray:
+        """``x`` with its first ``lead`` axes kept and the rest packed (a no-op for the plain store)."""
+        if not self.pack_bits:
+            return x
+        if x.size and x.max() > 1:  # uint8: nothing below 0
+            raise ValueError(f"replay: {name} holds the value {int(x.max())}; a bit-packed store keeps 0s and "
+                             f"1s only")
+        return np.packbits(x.reshape(*x.shape[:lead], -1), axis=-1)
+
+    def _unpack(self, x: np.ndarray, shape: tuple[int, ...]) -> np.ndarray:
+        if not self.pack_bits:
+            return x
+        cells = int(np.prod(shape, dtype=np.int64))
+        return np.unpackbits(x, axis=-1, count=cells).reshape(*x.shape[:-1], *shape)
 
     # ------------------------------------------------------------------ sizes
     def __len__(self) -> int:
@@ -270,7 +303,8 @@ class Replay:
     def __repr__(self) -> str:
         state = "" if self.state_shape is None else f", state_shape={self.state_shape}"
         return (f"Replay(capacity={self.capacity}, num_envs={self.num_envs}, num_agents={self.num_agents}, "
-                f"obs_shape={self.obs_shape}, obs_dtype={self.obs_dtype}{state}, n_step={self.n_step}, "
+                f"obs_shape={self.obs_shape}, obs_dtype={self.obs_dtype}{state}, pack_bits={self.pack_bits}, "
+                f"n_step={self.n_step}, "
                 f"gamma={self.gamma}, prioritized={self.prioritized}, alpha={self.alpha}, ready={len(self)})")
 
     # ------------------------------------------------------------------ writing
@@ -299,9 +333,9 @@ class Replay:
         self._start_ok[slot, copies] = False
         self._end[slot, copies] = False
         self._terminated[slot, copies] = False
-        self._obs[slot, copies] = obs
+        self._obs[slot, copies] = self._pack("an observation", obs, 2)
         if state is not None:
-            self._state[slot, copies] = state
+            self._state[slot, copies] = self._pack("a state", state, 1)
         self._stamp[slot, copies] = self._writes[copies]
         self._writes[copies] += 1
 
@@ -442,17 +476,17 @@ class Replay:
         else:
             weights = np.ones(K)
         batch = {
-            "obs": self._obs[s, b],
+            "obs": self._unpack(self._obs[s, b], self.obs_shape),
             "actions": self._action[s, b].astype(np.int64),
             "returns": returns.astype(np.float32),
             "discounts": discounts.astype(np.float32),
-            "next_obs": self._obs[boot, b],
+            "next_obs": self._unpack(self._obs[boot, b], self.obs_shape),
             "weights": weights.astype(np.float32),
             "indices": leaves.astype(np.int64),
         }
         if self._state is not None:
-            batch["state"] = self._state[s, b]
-            batch["next_state"] = self._state[boot, b]
+            batch["state"] = self._unpack(self._state[s, b], self.state_shape)
+            batch["next_state"] = self._unpack(self._state[boot, b], self.state_shape)
         return batch
 
     def update_priorities(self, indices: np.ndarray, td_errors: np.ndarray) -> None:

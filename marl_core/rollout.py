@@ -17,7 +17,10 @@ import numpy as np
 from envs.metrics import METRIC_NAMES, social_outcomes
 from marl_core.team_env import Step, TeamEnv
 
-__all__ = ["Collector", "evaluate", "random_policy"]
+__all__ = ["Collector", "evaluate", "random_policy", "BEHAVIOUR"]
+
+# Behaviour measures: per-agent event counts our games report in their infos, summed over an episode
+BEHAVIOUR: tuple[str, ...] = ("resources_taken", "tags_fired", "times_tagged", "waste_removed")
 
 Policy = Callable[[np.ndarray], np.ndarray]  # obs (B, N, ...) -> actions (B, N)
 
@@ -50,7 +53,9 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     """Play ``episodes`` episodes over the env's copies (reset with ``seed``) and average the results.
 
     Returns ``episodes``, per-agent mean ``returns``, ``return_mean`` (mean over agents), the four social
-    outcome metrics (means over episodes, NaN values left out), ``episode_length`` and, with ``gif``, the
+    outcome metrics (means over episodes, NaN values left out), ``episode_length``; where the env reports
+    them (our games), ``behaviour``: each of :data:`BEHAVIOUR` per agent per episode, the mean over agents,
+    and ``behaviour_per_agent``: agent -> measure -> count per episode; and, with ``gif``, the
     ``frames`` of copy 0's first episode: its first state, then the state after each step. The env must be
     made with ``render=True`` for the last one: the env resets copy 0 inside the step that ends its episode,
     so that frame is the step's ``final_frame`` (rendered before the reset), not ``render(0)``.
@@ -61,6 +66,7 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     quota = np.array([episodes // B + (b < episodes % B) for b in range(B)])
     rewards: list[list[np.ndarray]] = [[] for _ in range(B)]
     frozen: list[list[np.ndarray]] = [[] for _ in range(B)]
+    counts: list[dict[str, np.ndarray]] = [{} for _ in range(B)]  # behaviour so far in each copy's episode
     done: list[dict[str, Any]] = []
     frames = [env.render(0)] if gif and quota[0] else []
     recording = gif and quota[0] > 0
@@ -71,10 +77,14 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
         for b in np.nonzero(quota > 0)[0]:
             rewards[b].append(st.rewards[b])
             frozen[b].append(st.frozen[b])
+            for k in BEHAVIOUR:
+                if k in st.infos:
+                    counts[b][k] = counts[b].get(k, 0) + np.asarray(st.infos[k][b], np.float64)
             if st.end[b]:
                 r, f = np.asarray(rewards[b], np.float64), np.asarray(frozen[b], bool)
-                done.append({"returns": r.sum(axis=0), "length": len(r), **social_outcomes(r, f)})
-                rewards[b], frozen[b] = [], []
+                done.append({"returns": r.sum(axis=0), "length": len(r), "counts": counts[b],
+                             **social_outcomes(r, f)})
+                rewards[b], frozen[b], counts[b] = [], [], {}
                 quota[b] -= 1
                 recording = recording and b != 0
     returns = np.mean([d["returns"] for d in done], axis=0)
@@ -87,6 +97,12 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     for m in METRIC_NAMES:
         vals = np.array([d[m] for d in done], np.float64)
         out[m] = float(np.nanmean(vals)) if np.isfinite(vals).any() else float("nan")
+    measures = [k for k in BEHAVIOUR if all(k in d["counts"] for d in done)]
+    if measures:
+        per_agent = {k: np.mean([d["counts"][k] for d in done], axis=0) for k in measures}
+        out["behaviour"] = {k: float(v.mean()) for k, v in per_agent.items()}
+        out["behaviour_per_agent"] = {a: {k: float(per_agent[k][i]) for k in measures}
+                                      for i, a in enumerate(env.spec.agents)}
     if gif:
         out["frames"] = [f for f in frames if f is not None]
     return out

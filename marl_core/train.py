@@ -15,7 +15,15 @@ checkpoint. Layout of a run directory::
 ``equality``, ``sustainability``, ``peace``, the random team's figures under ``random``, and under
 ``baselines`` every non-learning team (:mod:`marl_core.baselines`: random, no-op, the game's scripted teams)
 -> the same keys as the learned team. The baselines play once, at the start, on the evaluation copies and
-seeds that every evaluation of the learned team uses, for ``train.eval_episodes`` episodes.
+seeds that every evaluation of the learned team uses, for ``train.eval_episodes`` episodes. On our games
+it also has ``behaviour`` (resources taken, tags fired, times tagged and, on cleanup, waste removed, per
+agent per episode, the mean over agents) and ``behaviour_per_agent`` (agent -> the same counts), for the
+learned team and each baseline; TensorBoard has them as ``eval/behaviour/*``.
+
+Reward transforms (the config's ``reward`` section, :mod:`marl_core.rewards`) change only what goes into
+the replay: every metric, return and baseline above is computed on the env's own rewards. With a
+transform on, TensorBoard also logs ``train/reward_env`` and ``train/reward_learned`` (mean per
+agent-step of the env's and the learned rewards since the last log).
 
 What a resume restores: the learner (networks, targets, optimisers, exploration schedule, RNG states) and
 the counters. What it does not: the replay contents (refilled from fresh experience; updates resume once a
@@ -43,6 +51,7 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import torch
 
 from envs.metrics import METRIC_NAMES
@@ -56,6 +65,7 @@ from marl_core.learners import build_learner
 from marl_core.maddpg import resolve_critic_input
 from marl_core.policy import atomic_torch_save, safe_torch_load
 from marl_core.replay import Replay
+from marl_core.rewards import RewardShaper
 from marl_core.rollout import Collector, evaluate
 from marl_core.targets import linear_schedule
 from marl_core.team_env import make_team_env
@@ -116,8 +126,8 @@ class _DeferSigint:
 
 def _result(ev: dict[str, Any]) -> dict[str, Any]:
     """The JSON-ready part of an evaluation."""
-    keys = ("returns", "return_mean", "episode_length", *METRIC_NAMES)
-    return {"eval_episodes": ev["episodes"], **{k: ev[k] for k in keys}}
+    keys = ("returns", "return_mean", "episode_length", *METRIC_NAMES, "behaviour", "behaviour_per_agent")
+    return {"eval_episodes": ev["episodes"], **{k: ev[k] for k in keys if k in ev}}
 
 
 # ---------------------------------------------------------------------- the run
@@ -145,7 +155,11 @@ class _Run:
             state_shape=None if state_space is None else tuple(state_space.shape),
             state_dtype=None if state_space is None else state_space.dtype,
             n_step=getattr(L, "n_step", 1), gamma=L.gamma, prioritized=getattr(L, "prioritized", False),
-            alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed)
+            alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed,
+            pack_bits=L.pack_replay and _zero_one(self.spec.obs_space) and (
+                state_space is None or _zero_one(state_space)))
+        # what the agents learn from (the metrics keep the env's rewards); checked before any file is written
+        self.shaper = RewardShaper(cfg.reward, e.num_envs, self.spec.num_agents)
         self.env_steps = self.vec_steps = self.episodes = self.evals = 0
         self.baselines: dict[str, Any] | None = None
         self.last_eval: dict[str, Any] | None = None
@@ -206,6 +220,11 @@ class _Run:
             self.scalar(f"eval/{m}", ev[m])
         for a, r in ev["returns"].items():
             self.scalar(f"eval/return/{a}", r)
+        for k, v in ev.get("behaviour", {}).items():
+            self.scalar(f"eval/behaviour/{k}", v)
+        for a, measures in ev.get("behaviour_per_agent", {}).items():
+            for k, v in measures.items():
+                self.scalar(f"eval/behaviour/{k}/{a}", v)
         for team, res in self.baselines.items():
             for m in (*METRIC_NAMES, "return_mean"):
                 self.scalar(f"{'random' if team == 'random' else 'baseline/' + team}/{m}", res[m])
@@ -270,6 +289,8 @@ class _Run:
         next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
         next_log = (self.env_steps // cfg.log.log_every + 1) * cfg.log.log_every
         stats: dict[str, float] = {}
+        reward_sums = np.zeros(2)  # env and learned reward per agent-step, summed since the last log
+        log_steps = 0
         t0, s0 = time.perf_counter(), self.env_steps
         prioritized = getattr(L, "prioritized", False)
         if self.progress is not None:  # the start: steps/s and elapsed time count from here
@@ -280,7 +301,10 @@ class _Run:
             self._between_steps = False
             actions = self.learner.act(col.obs, explore=True, env_steps=self.env_steps)
             st = col.step(actions)
-            self.replay.add(actions, st.rewards, st.terminated, st.end, st.obs,
+            learned = self.shaper(st.rewards, st.end)
+            if self.shaper.active:
+                reward_sums += (st.rewards.mean(), learned.mean())
+            self.replay.add(actions, learned, st.terminated, st.end, st.obs,
                             st.state if self.keep_state else None, st.reset_obs,
                             st.reset_state if self.keep_state else None)
             self.env_steps += B
@@ -295,10 +319,16 @@ class _Run:
                     stats = self.learner.update(batch)
                     if prioritized:
                         self.replay.update_priorities(batch["indices"], self.learner.priorities)
+            log_steps += 1
             if self.env_steps >= next_log:
                 next_log += cfg.log.log_every
                 for k, v in stats.items():
                     self.scalar(f"train/{k}", v)
+                if self.shaper.active:  # what the transforms did to the rewards, per agent-step
+                    self.scalar("train/reward_env", reward_sums[0] / log_steps)
+                    self.scalar("train/reward_learned", reward_sums[1] / log_steps)
+                reward_sums[:] = 0.0
+                log_steps = 0
                 self.scalar("train/epsilon", self.learner.epsilon(self.env_steps))
                 rate = (self.env_steps - s0) / max(time.perf_counter() - t0, 1e-9)
                 self.scalar("train/env_steps_per_s", rate)
@@ -329,6 +359,12 @@ class _Run:
         self.env.close()
         self.eval_env.close()
         return summary
+
+
+def _zero_one(space: Any) -> bool:
+    """A uint8 Box whose every cell lies in [0, 1]: its values can be stored bit-packed."""
+    return (getattr(space, "dtype", None) == np.uint8 and bool(np.all(space.low == 0))
+            and bool(np.all(space.high == 1)))
 
 
 # ---------------------------------------------------------------------- entry points

@@ -469,3 +469,77 @@ def test_memory_per_transition_is_close_to_the_raw_observation_bytes():
     assert buf.bytes_per_transition == buf.nbytes / (1562 * 64)
     assert buf.nbytes > buf.slots * 64 * buf.raw_bytes_per_transition + buf.tree.nbytes
     assert buf.bytes_per_transition / buf.raw_bytes_per_transition <= 1.1  # design target
+
+
+# ---------------------------------------------------------------------------------------------- bit packing
+def _twin_buffers(n_step: int = 3, state: bool = True, prioritized: bool = False):
+    """A plain and a bit-packed buffer fed the same random 0/1 stream, with episode ends, from one seed."""
+    B, N, obs_shape, state_shape = 3, 2, (3, 5, 5), (4, 5, 7)  # 75 and 140 cells: not multiples of 8
+    kw = dict(n_step=n_step, gamma=0.9, prioritized=prioritized, seed=7,
+              state_shape=state_shape if state else None, state_dtype=np.uint8 if state else None)
+    bufs = [Replay(60, B, N, obs_shape, np.uint8, 7, pack_bits=p, **kw) for p in (False, True)]
+    rng = np.random.default_rng(0)
+
+    def obs():
+        return rng.integers(0, 2, (B, N, *obs_shape), dtype=np.uint8)
+
+    def st():
+        return rng.integers(0, 2, (B, *state_shape), dtype=np.uint8) if state else None
+
+    o, s = obs(), st()
+    for buf in bufs:
+        buf.start(o, s)
+    for t in range(50):  # more steps than slots: the rings wrap
+        args = (rng.integers(0, 7, (B, N)), rng.normal(size=(B, N)), rng.random((B, N)) < 0.05,
+                rng.random(B) < 0.15, obs(), st(), obs(), st())
+        for buf in bufs:
+            buf.add(*args)
+    return bufs
+
+
+@pytest.mark.parametrize("state, prioritized", [(True, False), (False, True)])
+def test_packed_batches_are_bit_for_bit_those_of_the_plain_store(state, prioritized):
+    plain, packed = _twin_buffers(state=state, prioritized=prioritized)
+    assert packed.pack_bits and not plain.pack_bits
+    for _ in range(5):
+        a, b = plain.sample(32), packed.sample(32)
+        assert a.keys() == b.keys()
+        for k in a:
+            assert a[k].dtype == b[k].dtype and a[k].shape == b[k].shape, k
+            np.testing.assert_array_equal(a[k], b[k], err_msg=k)
+        if prioritized:
+            td = np.abs(a["returns"]).mean(axis=1)
+            plain.update_priorities(a["indices"], td)
+            packed.update_priorities(b["indices"], td)
+
+
+def test_packed_store_is_an_eighth_of_the_observation_bytes():
+    # the harvest-sized case of the test above: 5 agents, (9,15,15) windows, 8 copies
+    plain = Replay(100_000, 8, 5, (9, 15, 15), np.uint8, 8)
+    packed = Replay(100_000, 8, 5, (9, 15, 15), np.uint8, 8, pack_bits=True)
+    assert packed._obs.shape[-1] == 254  # ceil(2025 / 8), hand-computed
+    assert plain.nbytes / (plain.slots * 8 * plain.raw_bytes_per_transition) > 1.0
+    assert packed.nbytes / (packed.slots * 8 * packed.raw_bytes_per_transition) <= 0.15  # issue goal
+
+
+def test_packed_store_refuses_values_other_than_0_and_1():
+    buf = Replay(20, 1, 1, (2, 2), np.uint8, 3, pack_bits=True)
+    with pytest.raises(ValueError, match="holds the value 2; a bit-packed store keeps 0s and 1s only"):
+        buf.start(np.full((1, 1, 2, 2), 2, np.uint8))
+    with pytest.raises(ValueError, match="pack_bits needs uint8 observations"):
+        Replay(20, 1, 1, (2,), np.float32, 3, pack_bits=True)
+
+
+def test_training_packs_grid_observations_and_not_vectors(tmp_path):
+    from marl_core.config import parse_config
+    from marl_core.train import _Run
+
+    grid = {"env": {"name": "harvest_v0", "num_envs": 2,
+                    "params": {"layout": "harvest_tiny", "num_agents": 2, "view_radius": 2}},
+            "learner": {"replay_size": 1000}, "log": {"tensorboard": False, "gif_every": 0}}
+    assert _Run(parse_config(grid), tmp_path / "a", None).replay.pack_bits
+    off = parse_config(grid, ["learner.pack_replay=false"])
+    assert not _Run(off, tmp_path / "b", None).replay.pack_bits
+    vector = {"env": {"name": "gymnasium:CartPole-v1", "num_envs": 2}, "learner": {"replay_size": 1000},
+              "log": {"tensorboard": False, "gif_every": 0}}
+    assert not _Run(parse_config(vector), tmp_path / "c", None).replay.pack_bits
