@@ -489,7 +489,7 @@ def _twin_buffers(n_step: int = 3, state: bool = True, prioritized: bool = False
     o, s = obs(), st()
     for buf in bufs:
         buf.start(o, s)
-    for t in range(50):  # more steps than slots: the rings wrap
+    for _ in range(50):  # more steps than slots: the rings wrap
         args = (rng.integers(0, 7, (B, N)), rng.normal(size=(B, N)), rng.random((B, N)) < 0.05,
                 rng.random(B) < 0.15, obs(), st(), obs(), st())
         for buf in bufs:
