@@ -25,11 +25,13 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       warmup_steps: 2000
       train_every: 1
       updates_per_round: 1
+      replay_ratio: null
       lr_end: null
       lr_decay_steps: 100000
       grad_clip: 10.0
       hidden: 128
       conv_channels: [16, 32]
+      conv_strides: null
       torch_threads: 1
       double: true
       dueling: false
@@ -318,8 +320,15 @@ class _LearnerBase(BaseModel):
                               "replay, 8 cells a byte, unpacked per sampled batch; other observations are "
                               "stored as they are (false: plain uint8 store)")
     warmup_steps: _Int = Field(2000, ge=0, description="env steps collected before the first update")
-    train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds")
-    updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round")
+    train_every: _PositiveInt = Field(1, description="vector-env steps between update rounds (left at 1 "
+                                      "when replay_ratio is set)")
+    updates_per_round: _PositiveInt = Field(1, description="gradient updates per update round (left at 1 "
+                                            "when replay_ratio is set)")
+    replay_ratio: float | None = Field(None, gt=0.0, description="samples drawn per env step collected "
+                                       "(batch_size * updates / env steps, the same per agent): updates run "
+                                       "whenever the samples owed reach a batch, so it holds for any "
+                                       "env.num_envs (null: batch_size * updates_per_round / (num_envs * "
+                                       "train_every))")
     lr_end: float | None = Field(None, gt=0.0, description="learning rate reached at the end of a linear "
                                  "decay over lr_decay_steps env steps; every optimiser's rate is scaled by "
                                  "the same factor (null: constant learning rates)")
@@ -333,10 +342,31 @@ class _LearnerBase(BaseModel):
     conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
                                              description="output channels of each conv layer of the "
                                              "grid-window encoder")
+    conv_strides: list[_PositiveInt] | None = Field(None, min_length=1, description="stride of each conv "
+                                                    "layer of the grid-window encoder, one per entry of "
+                                                    "conv_channels (null: 1 for the first layer, 2 for the "
+                                                    "others)")
     torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process; one leaves a "
                                        "core to each other sweep worker. Measured on an idle 2-core machine "
                                        "(scripts/bench_train.py --torch-threads): two threads run one job "
                                        "1.4x (idqn) to 1.7x (maddpg) faster, at lower work per CPU second")
+
+    @model_validator(mode="after")
+    def _one_stride_per_conv_layer(self) -> _LearnerBase:
+        if self.conv_strides is not None and len(self.conv_strides) != len(self.conv_channels):
+            raise _own_error(_not_allowed("learner.conv_strides", self.conv_strides,
+                                          f"one stride per conv layer: {len(self.conv_channels)} "
+                                          f"(learner.conv_channels = {self.conv_channels})"))
+        return self
+
+    @model_validator(mode="after")
+    def _one_way_to_pace_updates(self) -> _LearnerBase:
+        if self.replay_ratio is not None:
+            for name in ("train_every", "updates_per_round"):
+                if getattr(self, name) != 1:
+                    raise _own_error(f"learner.{name} = {getattr(self, name)} is not allowed together with "
+                                     f"learner.replay_ratio: the ratio paces the updates; leave {name} at 1")
+        return self
 
 
 class IDQNConfig(_LearnerBase):
@@ -947,11 +977,21 @@ def config_to_dict(cfg: RunConfig) -> dict[str, Any]:
     return cfg.model_dump(mode="python")
 
 
+# learner keys added after the first release -> the value that behaves as the first release did
+# (a bit-packed replay samples bit for bit what the plain one does)
+_ADDED_LEARNER_KEYS: dict[str, Any] = {"pack_replay": True, "replay_ratio": None, "conv_strides": None}
+
+
 def config_hash(cfg: RunConfig) -> str:
     """A stable 12-hex-digit digest of the resolved config (same config, same hash, in any process)."""
     data = config_to_dict(cfg)
+    # keys added after the first release drop out at the values that behave as before, so the configs of
+    # earlier runs keep their hash (run ids in sweep ledgers, checkpoints to resume)
     if data["reward"] == RewardConfig().model_dump(mode="python"):
-        del data["reward"]  # added after the first release: configs that do not use it keep their hash
+        del data["reward"]
+    for key, neutral in _ADDED_LEARNER_KEYS.items():
+        if key in data["learner"] and data["learner"][key] == neutral:
+            del data["learner"][key]
     text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
 

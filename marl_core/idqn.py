@@ -41,7 +41,7 @@ class IDQN:
             torch.manual_seed(seed)
             self.q = AgentNets(spec.num_agents, cfg.share_parameters, obs_shape=spec.obs_shape,
                                num_actions=spec.num_actions, hidden=cfg.hidden, conv_channels=cfg.conv_channels,
-                               dueling=cfg.dueling)
+                               dueling=cfg.dueling, conv_strides=cfg.conv_strides)
         self.target = copy.deepcopy(self.q).requires_grad_(False)
         self.opt = torch.optim.Adam(self.q.parameters(), lr=cfg.lr)
         self.rng = np.random.default_rng(seed)

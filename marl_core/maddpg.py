@@ -98,13 +98,13 @@ class CentralCritic(nn.Module):
     """
 
     def __init__(self, input_shape: tuple[int, ...], num_agents: int, num_actions: int, hidden: int,
-                 conv_channels: tuple[int, ...], shared: bool):
+                 conv_channels: tuple[int, ...], shared: bool, conv_strides: tuple[int, ...] | None = None):
         super().__init__()
         self.num_agents, self.shared = num_agents, shared
         outs = [num_agents] if shared else [1] * num_agents
 
         def net(out: int) -> nn.Module:
-            enc = Encoder(input_shape, hidden, conv_channels)
+            enc = Encoder(input_shape, hidden, conv_channels, conv_strides)
             return nn.ModuleDict({"enc": enc, "mlp": nn.Sequential(
                 nn.Linear(enc.out_dim + num_agents * num_actions, hidden), nn.ReLU(),
                 nn.Linear(hidden, hidden), nn.ReLU(), nn.Linear(hidden, out))})
@@ -167,9 +167,11 @@ class MADDPG:
         with torch.random.fork_rng(devices=[]):  # seeded initial weights, global RNG left as it was
             torch.manual_seed(seed)
             self.actors = AgentNets(N, cfg.share_parameters, obs_shape=spec.obs_shape, num_actions=A,
-                                    hidden=cfg.hidden, conv_channels=cfg.conv_channels, dueling=False)
+                                    hidden=cfg.hidden, conv_channels=cfg.conv_channels, dueling=False,
+                                    conv_strides=cfg.conv_strides)
             self.critic = CentralCritic(critic_input_shape(spec, source), N, A, cfg.hidden,
-                                        tuple(cfg.conv_channels), cfg.critic == "shared")
+                                        tuple(cfg.conv_channels), cfg.critic == "shared",
+                                        cfg.conv_strides)
         self.target_actors = copy.deepcopy(self.actors).requires_grad_(False)
         self.target_critic = copy.deepcopy(self.critic).requires_grad_(False)
         self.actor_opt = torch.optim.Adam(self.actors.parameters(), lr=cfg.actor_lr)

@@ -18,7 +18,12 @@ from torch import nn
 
 from marl_core.targets import dueling_combine
 
-__all__ = ["Encoder", "AgentNet", "AgentNets", "net_description", "build_net", "to_float"]
+__all__ = ["Encoder", "AgentNet", "AgentNets", "net_description", "build_net", "to_float", "default_strides"]
+
+
+def default_strides(layers: int) -> tuple[int, ...]:
+    """The strides of an encoder whose description names none (policies saved before ``conv_strides``)."""
+    return tuple(1 if i == 0 else 2 for i in range(layers))
 
 
 def to_float(obs: torch.Tensor) -> torch.Tensor:
@@ -30,18 +35,25 @@ class Encoder(nn.Module):
     """Observation encoder.
 
     Shape:
-        image: (K, C, H, W) -> (K, out_dim), two 3x3 convolutions (the second with stride 2) and ReLU
+        image: (K, C, H, W) -> (K, out_dim), one 3x3 convolution (padding 1) and ReLU per entry of
+            ``conv_channels``, with the strides ``conv_strides`` (None: 1 for the first, 2 for the others)
         vector: (K, *shape) -> (K, out_dim), flatten then one hidden layer with ReLU
     """
 
-    def __init__(self, obs_shape: tuple[int, ...], hidden: int, conv_channels: tuple[int, ...]):
+    def __init__(self, obs_shape: tuple[int, ...], hidden: int, conv_channels: tuple[int, ...],
+                 conv_strides: tuple[int, ...] | None = None):
         super().__init__()
         self.obs_shape = tuple(obs_shape)
+        strides = default_strides(len(conv_channels)) if conv_strides is None else tuple(conv_strides)
+        if len(strides) != len(conv_channels):
+            raise ValueError(f"conv_strides {list(strides)} needs one stride per conv layer "
+                             f"({len(conv_channels)})")
+        self.conv_strides = strides
         if len(self.obs_shape) == 3:
             layers: list[nn.Module] = []
             c_in = self.obs_shape[0]
-            for i, c in enumerate(conv_channels):
-                layers += [nn.Conv2d(c_in, c, 3, stride=1 if i == 0 else 2, padding=1), nn.ReLU()]
+            for c, stride in zip(conv_channels, strides):
+                layers += [nn.Conv2d(c_in, c, 3, stride=stride, padding=1), nn.ReLU()]
                 c_in = c
             layers.append(nn.Flatten())
             self.body = nn.Sequential(*layers)
@@ -69,10 +81,11 @@ class AgentNet(nn.Module):
     """
 
     def __init__(self, obs_shape: tuple[int, ...], num_actions: int, hidden: int = 128,
-                 conv_channels: tuple[int, ...] = (16, 32), id_dim: int = 0, dueling: bool = False):
+                 conv_channels: tuple[int, ...] = (16, 32), id_dim: int = 0, dueling: bool = False,
+                 conv_strides: tuple[int, ...] | None = None):
         super().__init__()
         self.num_actions, self.id_dim, self.dueling = num_actions, id_dim, dueling
-        self.encoder = Encoder(obs_shape, hidden, tuple(conv_channels))
+        self.encoder = Encoder(obs_shape, hidden, tuple(conv_channels), conv_strides)
         self.trunk = nn.Sequential(nn.Linear(self.encoder.out_dim + id_dim, hidden), nn.ReLU())
         self.head = nn.Linear(hidden, num_actions)
         self.value = nn.Linear(hidden, 1) if dueling else None
@@ -90,16 +103,19 @@ class AgentNet(nn.Module):
 
 
 def net_description(obs_shape: tuple[int, ...], num_actions: int, hidden: int, conv_channels, id_dim: int,
-                    dueling: bool) -> dict[str, Any]:
+                    dueling: bool, conv_strides=None) -> dict[str, Any]:
     """Everything :func:`build_net` needs, as plain JSON-ready values."""
+    strides = default_strides(len(conv_channels)) if conv_strides is None else conv_strides
     return {"obs_shape": list(obs_shape), "num_actions": int(num_actions), "hidden": int(hidden),
-            "conv_channels": [int(c) for c in conv_channels], "id_dim": int(id_dim), "dueling": bool(dueling)}
+            "conv_channels": [int(c) for c in conv_channels], "conv_strides": [int(s) for s in strides],
+            "id_dim": int(id_dim), "dueling": bool(dueling)}
 
 
 def build_net(desc: dict[str, Any]) -> AgentNet:
     """An :class:`AgentNet` from a :func:`net_description` dict."""
+    strides = desc.get("conv_strides")  # absent from policies saved before it existed: the old rule
     return AgentNet(tuple(desc["obs_shape"]), desc["num_actions"], desc["hidden"], tuple(desc["conv_channels"]),
-                    desc["id_dim"], desc["dueling"])
+                    desc["id_dim"], desc["dueling"], None if strides is None else tuple(strides))
 
 
 class AgentNets(nn.Module):

@@ -20,6 +20,11 @@ it also has ``behaviour`` (resources taken, tags fired, times tagged and, on cle
 agent per episode, the mean over agents) and ``behaviour_per_agent`` (agent -> the same counts), for the
 learned team and each baseline; TensorBoard has them as ``eval/behaviour/*``.
 
+The replay ratio, samples drawn per env step collected (``learner.replay_ratio``, or what ``train_every``
+and ``updates_per_round`` give), is in ``summary.json`` as ``replay_ratio``, beside
+``replay_ratio_measured`` (samples drawn / env steps since the first update; null before it) and logged as
+``train/replay_ratio``.
+
 Reward transforms (the config's ``reward`` section, :mod:`marl_core.rewards`) change only what goes into
 the replay: every metric, return and baseline above is computed on the env's own rewards. With a
 transform on, TensorBoard also logs ``train/reward_env`` and ``train/reward_learned`` (mean per
@@ -161,6 +166,9 @@ class _Run:
         # what the agents learn from (the metrics keep the env's rewards); checked before any file is written
         self.shaper = RewardShaper(cfg.reward, e.num_envs, self.spec.num_agents)
         self.env_steps = self.vec_steps = self.episodes = self.evals = 0
+        self.samples = 0  # transitions drawn from replay (batch size x updates)
+        self.learn_steps = -1  # env steps collected before the first update (-1: no update yet)
+        self.owed = 0.0  # with learner.replay_ratio: samples owed, less than a batch
         self.baselines: dict[str, Any] | None = None
         self.last_eval: dict[str, Any] | None = None
         self.progress = progress
@@ -171,7 +179,8 @@ class _Run:
         atomic_torch_save({
             "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
             "counters": {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
-                         "evals": self.evals},
+                         "evals": self.evals, "samples": self.samples, "learn_steps": self.learn_steps,
+                         "owed": self.owed},
             "baselines": json.dumps(finite(self.baselines)), "last_eval": json.dumps(finite(self.last_eval)),
             "learner": self.learner.state_dict(), "replay_rng": self.replay.rng_state(),
             "torch_rng": torch.get_rng_state(),
@@ -189,10 +198,26 @@ class _Run:
         c = data["counters"]
         self.env_steps, self.vec_steps = int(c["env_steps"]), int(c["vec_steps"])
         self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
+        # absent from checkpoints written before replay_ratio: the measured ratio then restarts
+        self.samples, self.learn_steps = int(c.get("samples", 0)), int(c.get("learn_steps", -1))
+        self.owed = float(c.get("owed", 0.0))
         self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
         self.learner.load_state_dict(data["learner"])
         self.replay.set_rng_state(data["replay_rng"])
         torch.set_rng_state(data["torch_rng"])
+
+    def replay_ratio(self) -> float:
+        """The configured replay ratio: samples drawn per env step collected, once updates run."""
+        L = self.cfg.learner
+        if L.replay_ratio is not None:
+            return float(L.replay_ratio)
+        return L.batch_size * L.updates_per_round / (self.cfg.env.num_envs * L.train_every)
+
+    def measured_replay_ratio(self) -> float | None:
+        """Samples drawn per env step collected since the first update (None before it)."""
+        if self.learn_steps < 0 or self.env_steps <= self.learn_steps:
+            return None
+        return self.samples / (self.env_steps - self.learn_steps)
 
     # -- logging
     def open_logs(self, purge_step: int | None) -> None:
@@ -310,11 +335,21 @@ class _Run:
             self.env_steps += B
             self.vec_steps += 1
             self.episodes += int(st.end.sum())
-            if (self.env_steps >= L.warmup_steps and self.vec_steps % L.train_every == 0
-                    and len(self.replay) >= L.batch_size):
+            updates = 0
+            if self.env_steps >= L.warmup_steps and len(self.replay) >= L.batch_size:
+                if L.replay_ratio is None:
+                    updates = L.updates_per_round if self.vec_steps % L.train_every == 0 else 0
+                else:  # samples owed for the steps just collected; whole batches are drawn
+                    self.owed += B * L.replay_ratio
+                    updates = int(self.owed // L.batch_size)
+                    self.owed -= updates * L.batch_size
+            if updates:
                 beta = linear_schedule(self.env_steps, getattr(L, "priority_beta_start", 1.0), 1.0, T.total_steps)
                 self.learner.schedule(self.env_steps)
-                for _ in range(L.updates_per_round):
+                self.samples += updates * L.batch_size
+                if self.learn_steps < 0:
+                    self.learn_steps = self.env_steps - B
+                for _ in range(updates):
                     batch = self.replay.sample(L.batch_size, beta=beta)
                     stats = self.learner.update(batch)
                     if prioritized:
@@ -330,6 +365,7 @@ class _Run:
                 reward_sums[:] = 0.0
                 log_steps = 0
                 self.scalar("train/epsilon", self.learner.epsilon(self.env_steps))
+                self.scalar("train/replay_ratio", self.measured_replay_ratio())
                 rate = (self.env_steps - s0) / max(time.perf_counter() - t0, 1e-9)
                 self.scalar("train/env_steps_per_s", rate)
             if self.env_steps >= next_eval or self.env_steps >= T.total_steps:
@@ -349,6 +385,7 @@ class _Run:
             self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
                    "random": self.baselines["random"], "baselines": self.baselines,
+                   "replay_ratio": self.replay_ratio(), "replay_ratio_measured": self.measured_replay_ratio(),
                    "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:

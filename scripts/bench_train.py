@@ -4,7 +4,21 @@ This is a benchmark, not a test: it measures and prints, it asserts nothing and 
 
 What it measures, for each learner (``idqn`` and ``maddpg``) on ``harvest_v0`` (layout ``harvest_small``,
 5 agents, view radius 7, the game's default ``max_cycles`` unless overridden), one learner after the other
-in the same process:
+in the same process, under two settings (``--settings``):
+
+``previous``
+    The first release's settings, pinned in :data:`PREVIOUS_LEARNER`: a plain (not bit-packed) replay, the
+    conv encoder [16, 32] with strides 1 then 2, an update every vector step, on ``--num-envs`` copies
+    (default 8).
+``new``
+    The library's current defaults on ``--new-num-envs`` copies (default 32), with ``learner.replay_ratio``
+    set to the previous settings' ratio (batch size x updates per round / (copies x train_every)), so both
+    draw the same samples per env step collected.
+
+Per learner, the headline keys: ``env_steps_per_s`` (new), ``previous_env_steps_per_s``, ``speedup`` (their
+ratio), ``replay_bytes_ratio`` (new: replay bytes per transition / the raw uint8 observation bytes),
+``previous_replay_bytes_ratio``, ``replay_ratio`` and ``unpack_fraction_of_update`` (time in unpacking
+sampled batches over the update time); then ``previous`` and ``new`` with every figure below.
 
 ``env_steps_per_s``
     Env steps (vector steps x ``num_envs``) per wall second of the measured window, inside the real
@@ -58,8 +72,9 @@ wall time; torch runs one intra-op thread by default) well below 1, a wide sprea
 and the load averages in the JSON say the wall-time figures are pessimistic.
 
 How to read it. Compare figures only between runs on the same machine (the JSON carries python, torch,
-numpy, platform, CPU and torch threads). ``targets`` lists what this project aims for and
-``targets_met`` says whether this run reached it; neither changes the exit code.
+numpy, platform, CPU and torch threads). ``targets`` lists what this project aims for (``speedup`` at least
+3 for idqn and 5 for maddpg, ``replay_bytes_ratio`` at most 0.15) and ``targets_met`` says whether this run
+reached it; neither changes the exit code.
 
 Usage::
 
@@ -88,7 +103,7 @@ __all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measur
 
 LEARNERS: tuple[str, ...] = ("idqn", "maddpg")
 GAME, LAYOUT = "harvest_v0", "harvest_small"
-TARGETS: dict[str, float] = {"everything_else_fraction_max": 0.15, "replay_over_raw_max": 1.1}
+TARGETS: dict[str, float] = {"speedup_min_idqn": 3.0, "speedup_min_maddpg": 5.0, "replay_bytes_ratio_max": 0.15}
 DEFAULT_SECONDS = 30.0  # target length of the measured window when --steps is not given
 DEFAULT_WARMUP_UPDATES = 3
 _BARE_REPEATS = 3
@@ -100,8 +115,9 @@ def _round_up(value: int, multiple: int) -> int:
 
 
 def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max_cycles: int | None,
-                seed: int, warmup_steps: int = 0, total_steps: int = 1, torch_threads: int = 1):
-    """The run config of one measurement (see the module docstring)."""
+                seed: int, warmup_steps: int = 0, total_steps: int = 1, torch_threads: int = 1,
+                learner: dict[str, Any] | None = None):
+    """The run config of one measurement (see the module docstring); ``learner`` adds learner keys."""
     from marl_core.config import parse_config
 
     params: dict[str, Any] = {"layout": LAYOUT, "num_agents": num_agents, "view_radius": view_radius}
@@ -109,11 +125,19 @@ def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max
         params["max_cycles"] = max_cycles
     return parse_config({
         "env": {"name": GAME, "params": params, "num_envs": num_envs},
-        "learner": {"kind": kind, "warmup_steps": warmup_steps, "torch_threads": torch_threads},
+        "learner": {"kind": kind, "warmup_steps": warmup_steps, "torch_threads": torch_threads,
+                    **(learner or {})},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
                   "eval_episodes": 1, "baselines": ["random"]},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
     })
+
+
+def updates_per_vector_step(learner_cfg: Any, num_envs: int) -> float:
+    """Updates per vector step on average: from the replay ratio when it is set, else from train_every."""
+    if learner_cfg.replay_ratio is not None:
+        return learner_cfg.replay_ratio * num_envs / learner_cfg.batch_size
+    return learner_cfg.updates_per_round / learner_cfg.train_every
 
 
 def plan(learner_cfg: Any, num_envs: int, warmup_updates: int) -> tuple[int, int]:
@@ -122,13 +146,14 @@ def plan(learner_cfg: Any, num_envs: int, warmup_updates: int) -> tuple[int, int
     rounds later; both are multiples of ``num_envs``."""
     B = num_envs
     starts = max(_round_up(learner_cfg.batch_size, B), B)
-    return starts, starts + warmup_updates * learner_cfg.train_every * B
+    vec_steps = max(1, -(-warmup_updates // max(updates_per_vector_step(learner_cfg, B), 1e-9)))
+    return starts, starts + int(vec_steps) * B
 
 
 def window_steps(learner_cfg: Any, num_envs: int, bare_update_per_s: float, seconds: float) -> int:
     """Env steps for a window of about ``seconds``, assuming updates take 90% of the loop's time at the
     bare update rate (a multiple of ``num_envs``, at least 10 vector steps)."""
-    per_vec_step = learner_cfg.updates_per_round / learner_cfg.train_every / bare_update_per_s / 0.9
+    per_vec_step = updates_per_vector_step(learner_cfg, num_envs) / bare_update_per_s / 0.9
     return max(10, round(seconds / per_vec_step)) * num_envs
 
 
@@ -195,6 +220,7 @@ def _instrument(r: Any, clock: _Clock) -> None:
     r.replay.sample = _timed(clock, "replay_sample", r.replay.sample)
     r.replay.update_priorities = _timed(clock, "update_priorities", r.replay.update_priorities)
     r.learner.update = _timed(clock, "learner_update", r.learner.update)
+    r.replay._unpack = _timed(clock, "replay_unpack", r.replay._unpack)  # inside replay.sample
     r.scalar = _timed(clock, "logging", r.scalar)
     act = _timed(clock, "act", r.learner.act)
 
@@ -254,6 +280,7 @@ def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
             "replay_bytes_per_transition": r.replay.bytes_per_transition,
             "raw_obs_bytes_per_transition": r.replay.raw_bytes_per_transition,
             "replay_stores_state": r.keep_state,
+            "replay_packed": r.replay.pack_bits,
             "replay_capacity": r.replay.capacity,
             "obs_shape": list(r.spec.obs_shape),
             "obs_dtype": str(r.spec.obs_dtype),
@@ -328,13 +355,15 @@ def measure_bare(cfg: Any, seconds: float) -> dict[str, Any]:
             "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm}
 
 
-def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
-    """Every figure of one learner: the bare update loop first (it also sizes the default window)."""
+def bench_learner(kind: str, args: argparse.Namespace, settings: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Every figure of one learner under ``settings`` (``num_envs`` and learner keys; None: ``--num-envs``
+    and the library defaults): the bare update loop first (it also sizes the default window)."""
     from marl_core.config import config_to_dict
 
-    B = args.num_envs
+    settings = settings or {"num_envs": args.num_envs, "learner": {}}
+    B, extra = settings["num_envs"], settings["learner"]
     base = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
-                       torch_threads=args.torch_threads)
+                       torch_threads=args.torch_threads, learner=extra)
     bare = measure_bare(base, args.bare_seconds)
     starts, warmup = plan(base.learner, B, args.warmup_updates)
     if args.steps:
@@ -343,7 +372,8 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
         steps = window_steps(base.learner, B, bare["median"], args.seconds)
         chosen = f"from the bare update rate, for about {args.seconds:g} s"
     cfg = make_config(kind, B, args.agents, args.view_radius, args.max_cycles, args.seed,
-                      warmup_steps=starts, total_steps=warmup + steps, torch_threads=args.torch_threads)
+                      warmup_steps=starts, total_steps=warmup + steps, torch_threads=args.torch_threads,
+                      learner=extra)
     loop = measure_loop(cfg, warmup)
     clock, window = loop["clock"], loop["window_s"]
     sec = clock.seconds
@@ -369,6 +399,9 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
     ratio = loop["replay_bytes_per_transition"] / loop["raw_obs_bytes_per_transition"]
     L = cfg.learner
     return {
+        "unpack_fraction_of_update": (round(sec.get("replay_unpack", 0.0) / update_s, 4)
+                                      if update_s and loop["replay_packed"] else None),
+        "replay_packed": loop["replay_packed"],
         "env_steps_per_s": round(loop["window_env_steps"] / window, 1),
         "fractions": {k: round(v, 4) for k, v in fractions.items()},
         "cpu_time_fractions": {k: round(v, 4) for k, v in cpu_fractions.items()},
@@ -377,6 +410,7 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
             **{k: round(v, 3) for k, v in parts.items()},
             "update_parts": {k: round(sec.get(k, 0.0), 3)
                              for k in ("replay_sample", "learner_update", "update_priorities")},
+            "replay_unpack": round(sec.get("replay_unpack", 0.0), 3),
             "everything_else": round(else_s, 3),
             "everything_else_parts": {**{k: round(v, 3) for k, v in named_else.items()},
                                       "loop_and_collector_rest": round(else_s - sum(named_else.values()), 3)},
@@ -420,18 +454,57 @@ def bench_learner(kind: str, args: argparse.Namespace) -> dict[str, Any]:
         "num_actions": loop["num_actions"],
         "stated_config": {"num_envs": cfg.env.num_envs, "batch_size": L.batch_size,
                           "train_every": L.train_every, "updates_per_round": L.updates_per_round,
-                          "hidden": L.hidden, "conv_channels": L.conv_channels,
+                          "replay_ratio": L.replay_ratio, "pack_replay": L.pack_replay,
+                          "hidden": L.hidden, "conv_channels": L.conv_channels, "conv_strides": L.conv_strides,
                           "replay_size": L.replay_size, "warmup_steps": L.warmup_steps,
                           "total_steps": cfg.train.total_steps, "eval_every": cfg.train.eval_every,
                           "checkpoint_every": cfg.train.checkpoint_every,
                           "log_every": cfg.log.log_every, "max_cycles": cfg.env.params["max_cycles"]},
         "config": config_to_dict(cfg),
-        "targets_met": {
-            "everything_else_fraction_max": fractions["everything_else"]
-            <= TARGETS["everything_else_fraction_max"],
-            "replay_over_raw_max": ratio <= TARGETS["replay_over_raw_max"],
-        },
+        "kind": kind,
     }
+
+
+# The settings of the first release, pinned here so that the comparison stays the same as defaults move
+PREVIOUS_LEARNER: dict[str, Any] = {"pack_replay": False, "conv_channels": [16, 32], "conv_strides": None,
+                                    "hidden": 128, "train_every": 1, "updates_per_round": 1}
+SETTINGS = ("previous", "new")
+DEFAULT_NEW_NUM_ENVS = 32
+
+
+def settings_of(name: str, kind: str, args: argparse.Namespace) -> dict[str, Any]:
+    """``previous``: the first release's settings on ``--num-envs`` copies. ``new``: the library's current
+    defaults on ``--new-num-envs`` copies, at the previous replay ratio (``learner.replay_ratio``)."""
+    previous = {"num_envs": args.num_envs, "learner": dict(PREVIOUS_LEARNER)}
+    if name == "previous":
+        return previous
+    L = make_config(kind, args.num_envs, args.agents, args.view_radius, args.max_cycles, args.seed,
+                    learner=previous["learner"]).learner
+    ratio = L.batch_size * L.updates_per_round / (args.num_envs * L.train_every)
+    return {"num_envs": args.new_num_envs, "learner": {"replay_ratio": ratio}}
+
+
+def compared(runs: dict[str, dict[str, Any]]) -> dict[str, Any]:
+    """The headline keys of one learner from its ``previous`` and ``new`` measurements (either may be
+    missing when ``--settings`` picks one), then each measurement in full."""
+    main = runs.get("new") or runs["previous"]
+    head: dict[str, Any] = {
+        "env_steps_per_s": main["env_steps_per_s"],
+        "replay_bytes_ratio": main["replay_over_raw"],
+        "unpack_fraction_of_update": main["unpack_fraction_of_update"],
+    }
+    if "new" in runs and "previous" in runs:
+        prev = runs["previous"]
+        head.update({"previous_env_steps_per_s": prev["env_steps_per_s"],
+                     "speedup": round(main["env_steps_per_s"] / prev["env_steps_per_s"], 3),
+                     "previous_replay_bytes_ratio": prev["replay_over_raw"],
+                     "replay_ratio": main["stated_config"]["replay_ratio"]})
+    head["targets_met"] = {
+        **({"speedup_min": head["speedup"] >= TARGETS[f"speedup_min_{main['kind']}"]} if "speedup" in head
+           else {}),
+        "replay_bytes_ratio_max": head["replay_bytes_ratio"] <= TARGETS["replay_bytes_ratio_max"],
+    }
+    return {**head, **runs}
 
 
 def _learner_list(text: str) -> list[str]:
@@ -443,27 +516,36 @@ def _learner_list(text: str) -> list[str]:
     return list(dict.fromkeys(names))
 
 
+def _settings_list(text: str) -> list[str]:
+    names = [t.strip() for t in text.split(",") if t.strip()]
+    if not names or any(n not in SETTINGS for n in names):
+        raise argparse.ArgumentTypeError(f"expected a comma-separated list of {', '.join(SETTINGS)}; "
+                                         f"got {text!r}")
+    return [n for n in SETTINGS if n in names]
+
+
 def _table(report: dict[str, Any]) -> str:
     lines = [f"python {report['python']}  torch {report['torch']}  numpy {report['numpy']}  "
              f"{report['platform']}", f"cpu {report['cpu']} x{report['cpu_count']}", "",
-             f"{'learner':<8}{'env steps/s':>12}{'env':>7}{'act':>7}{'update':>8}{'else':>7}{'add':>7}"
-             f"{'upd/s loop':>12}{'call':>8}{'bare':>8}{'replay/raw':>12}{'cpu/wall':>10}"]
+             f"{'learner':<8}{'settings':<10}{'copies':>7}{'env steps/s':>12}{'env':>7}{'act':>7}{'update':>8}"
+             f"{'else':>7}{'unpack':>8}{'upd/s loop':>12}{'bare':>8}{'replay/raw':>12}{'cpu/wall':>10}"]
+    for kind in report["learners"]:
+        for name in report["settings"]:
+            r = report[kind][name]
+            f = r["fractions"]
+            unpack = r["unpack_fraction_of_update"] or 0.0
+            lines.append(f"{kind:<8}{name:<10}{r['stated_config']['num_envs']:>7}{r['env_steps_per_s']:>12,.0f}"
+                         f"{f['env_step']:>7.1%}{f['act']:>7.1%}{f['update']:>8.1%}{f['everything_else']:>7.1%}"
+                         f"{unpack:>8.1%}{r['loop_updates_per_s']:>12.1f}{r['bare_update_per_s']:>8.1f}"
+                         f"{r['replay_over_raw']:>12.3f}{r['cpu_time_over_wall']:>10.2f}")
+    lines += ["", "fractions of the window's wall time (unpack: of the update time); upd/s: per window "
+              "second, bare loop", "targets:"]
     for kind in report["learners"]:
         r = report[kind]
-        f = r["fractions"]
-        call = r["loop_update_calls_per_s"] or 0.0
-        lines.append(f"{kind:<8}{r['env_steps_per_s']:>12,.0f}{f['env_step']:>7.1%}{f['act']:>7.1%}"
-                     f"{f['update']:>8.1%}{f['everything_else']:>7.1%}{f['replay_add']:>7.1%}"
-                     f"{r['loop_updates_per_s']:>12.1f}{call:>8.1f}{r['bare_update_per_s']:>8.1f}"
-                     f"{r['replay_over_raw']:>12.3f}{r['cpu_time_over_wall']:>10.2f}")
-    lines += ["", "fractions of the window's wall time; upd/s: per window second, per second inside "
-              "learner.update (call), bare loop", "targets:"]
-    for kind in report["learners"]:
-        met = report[kind]["targets_met"]
-        lines.append(f"  {kind}: everything else <= {TARGETS['everything_else_fraction_max']:.0%}: "
-                     f"{'met' if met['everything_else_fraction_max'] else 'not met'}; replay <= "
-                     f"{TARGETS['replay_over_raw_max']} x raw obs: "
-                     f"{'met' if met['replay_over_raw_max'] else 'not met'}")
+        speed = (f"speedup {r['speedup']:.2f}x (goal >= {TARGETS['speedup_min_' + kind]:g}x)"
+                 if "speedup" in r else "speedup: needs both settings")
+        lines.append(f"  {kind}: {speed}; replay bytes / raw obs bytes {r['replay_bytes_ratio']:.3f} "
+                     f"(goal <= {TARGETS['replay_bytes_ratio_max']})")
     return "\n".join(lines)
 
 
@@ -491,6 +573,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=0, help="seed of the run and of the bare batch")
     parser.add_argument("--torch-threads", type=positive(int), default=1,
                         help="learner.torch_threads of the measured runs (default 1, the library default)")
+    parser.add_argument("--new-num-envs", type=positive(int), default=DEFAULT_NEW_NUM_ENVS,
+                        help=f"env copies of the new settings (default {DEFAULT_NEW_NUM_ENVS})")
+    parser.add_argument("--settings", type=_settings_list, default=list(SETTINGS),
+                        help="comma-separated: previous, new (default both)")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     args = parser.parse_args(argv)
 
@@ -507,7 +593,10 @@ def main(argv: list[str] | None = None) -> int:
         make_team_env(cfg.env.name, cfg.env.params, 1, args.seed, with_state=False).close()
     except (ConfigError, EnvError) as err:
         parser.error(str(err))
-    results = {kind: bench_learner(kind, args) for kind in args.learners}
+    results = {}
+    for kind in args.learners:
+        runs = {name: bench_learner(kind, args, settings_of(name, kind, args)) for name in args.settings}
+        results[kind] = compared(runs)
     report = {
         "python": platform.python_version(),
         "torch": torch.__version__,
@@ -521,6 +610,7 @@ def main(argv: list[str] | None = None) -> int:
         "layout": LAYOUT,
         "seed": args.seed,
         "learners": args.learners,
+        "settings": args.settings,
         "targets": TARGETS,
         "targets_met": {k: results[k]["targets_met"] for k in results},
         **results,

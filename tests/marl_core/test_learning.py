@@ -66,3 +66,17 @@ def test_maddpg_beats_the_noop_team_on_cooperative_navigation(tmp_path):
     # -24.46 (every seed 3.4 or more above its no-op team) and landmark_walk -12.23 / -13.24 / -13.24.
     learned = [s["return_mean"] for s in runs]
     assert median(learned) > _median(runs, "return_mean", "noop") + 1.0, learned
+
+
+@pytest.mark.slow
+def test_cleanup_learners_clean_and_beat_every_scripted_team(tmp_path):
+    runs = _train("cleanup_tiny_idqn.yaml", tmp_path)  # the full config: 300k env steps, 2 agents
+    # bar (ours, no source): the median efficiency beats the median of the strongest non-learning team
+    # (random, no-op, nobody_cleans, one_cleaner), each played on the same evaluation episodes. Measured here,
+    # seeds 0-4: learned 0.281 / 0.242 / 0.260 / 0.265 / 0.267 against one_cleaner 0.119-0.127 (the
+    # strongest), nobody_cleans 0.026-0.029, random 0.053-0.061: the worst seed clears the strongest team by
+    # 0.12. The learned agents clean (4-5 waste cells an episode each); nobody_cleans never does.
+    learned = [s["efficiency"] for s in runs]
+    best = max(_median(runs, "efficiency", t) for t in runs[0]["baselines"])
+    assert median(learned) > best, (learned, best)
+    assert median(s["behaviour"]["waste_removed"] for s in runs) > 1.0
