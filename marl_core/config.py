@@ -516,11 +516,6 @@ class RewardConfig(BaseModel):
         json_schema_extra={"allowed": "null or a mapping with alpha (>= 0), beta (>= 0) and smoothing "
                                       "(in [0, 1), optional)", "type": "mapping | null"})
 
-    @field_validator("prosocial", mode="before")
-    @classmethod
-    def _whole_numbers(cls, value: Any) -> Any:
-        return float(value) if isinstance(value, int) and not isinstance(value, bool) else value
-
     @field_validator("inequity_aversion", mode="before")
     @classmethod
     def _check_inequity_aversion(cls, value: Any) -> Any:

@@ -78,8 +78,8 @@ class RewardShaper:
 
     def __init__(self, reward_cfg: Any, num_envs: int, num_agents: int):
         self.steps: list[tuple[str, Transform, Any]] = []
-        self._init: dict[str, Callable[[int, int], Any]] = {}
         self.state: dict[str, Any] = {}
+        self._first: dict[str, Any] = {}  # each transform's first state, copied in where an episode ends
         for name, (fn, init) in TRANSFORMS.items():
             value = getattr(reward_cfg, name)
             if not _active(name, value):
@@ -88,8 +88,8 @@ class RewardShaper:
                 raise ConfigError(f"reward.inequity_aversion is not allowed with {num_agents} agent: "
                                   f"it compares agents, so the game needs at least 2")
             self.steps.append((name, fn, value))
-            self._init[name] = lambda b=num_envs, n=num_agents, f=init: f(b, n)
-            self.state[name] = self._init[name]()
+            self._first[name] = init(num_envs, num_agents)
+            self.state[name] = None if self._first[name] is None else self._first[name].copy()
 
     @property
     def active(self) -> bool:
@@ -102,11 +102,7 @@ class RewardShaper:
         for name, fn, value in self.steps:
             r, self.state[name] = fn(r, self.state[name], value)
         if end.any():
-            fresh = self._fresh()
             for name, s in self.state.items():
-                if isinstance(s, np.ndarray):
-                    s[end] = fresh[name][end]
+                if s is not None:
+                    s[end] = self._first[name][end]
         return r.astype(np.float32)
-
-    def _fresh(self) -> dict[str, Any]:
-        return {name: init() for name, init in self._init.items()}
