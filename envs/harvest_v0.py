@@ -70,6 +70,8 @@ state_layout       str    ``"per_agent"``      what ``state()`` returns: ``"per_
                                                planes per agent) or ``"shared"`` (anonymous agents)
 regrow_radius      int    2                    radius of the neighbourhood counted for regrowth
 regrow_table       list   0,.01,.01,.05,.05,.1 regrowth probability by neighbour count (last: and more)
+regrow_scale       float  1.0                  multiplies every ``regrow_table`` entry, each product clipped
+                                               to [0, 1]: one knob for scarcity (< 1) or abundance (> 1)
 =================  =====  ===================  =====================================================
 
 **Version history.** v0: first release. Later in v0: the ``horizon`` parameter (default ``"time_limit"``,
@@ -77,7 +79,8 @@ the behaviour of the first release: truncation at ``max_cycles``). Later in v0: 
 parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="shared"``. Moves,
 observations, rewards and infos are unchanged for the same seed; only ``state()`` (and ``state_space``) differ.
 Later in v0: new bundled maps, with patches of many sizes and shapes; episodes on them differ from the first
-release's for the same seed. The rules are unchanged.
+release's for the same seed. The rules are unchanged. Later in v0: ``regrow_scale`` (default 1.0, the
+table as given: episodes unchanged for the same seed).
 """
 
 from __future__ import annotations
@@ -103,6 +106,8 @@ PARAMS: list[Param] = grid_params("harvest_small", [
     Param("regrow_table", list, [0.0, 0.01, 0.01, 0.05, 0.05, 0.1],
           "regrowth probability indexed by resources within the radius (the last entry: that many or more)",
           low=0.0, high=1.0),
+    Param("regrow_scale", float, 1.0, "multiplies every regrow_table entry (each product clipped to [0, 1]): "
+          "the scarcity knob, below 1 scarcer, above 1 more abundant", low=0.0, high=1000.0),
 ])
 
 
@@ -118,7 +123,8 @@ class HarvestGame(GridGame):
         offs = [(dy, dx) for dy in range(-R, R + 1) for dx in range(-R, R + 1)
                 if 0 < dy * dy + dx * dx <= R * R]
         self._near_f = np.array([dy * self.Wp + dx for dy, dx in offs], np.int64)
-        self._table = np.array(self.params["regrow_table"], np.float64)
+        table = np.array(self.params["regrow_table"], np.float64) * self.params["regrow_scale"]
+        self._table = np.clip(table, 0.0, 1.0)
 
     def _check_layout(self, layout: Layout) -> None:
         if not layout.orchard.any():

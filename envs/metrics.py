@@ -52,9 +52,13 @@ __all__ = [
     "social_outcomes",
     "social_outcomes_batch",
     "METRIC_NAMES",
+    "BEHAVIOUR_NAMES",
 ]
 
 METRIC_NAMES: tuple[str, ...] = ("efficiency", "equality", "sustainability", "peace")
+# Behaviour measures beside the metrics: per-agent event counts our grid games report in their infos, summed
+# over an episode (marl_core.rollout.evaluate averages them over episodes and agents)
+BEHAVIOUR_NAMES: tuple[str, ...] = ("resources_taken", "tags_fired", "times_tagged", "waste_removed")
 
 
 class MetricError(EnvError):

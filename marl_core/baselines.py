@@ -38,7 +38,7 @@ from marl_core.errors import ConfigError
 from marl_core.rollout import evaluate, random_policy
 from marl_core.team_env import GameTeamEnv, TeamEnv
 
-__all__ = ["ALWAYS", "KNOWN", "team_names", "make_team", "measure", "landmark_walk", "strongest"]
+__all__ = ["ALWAYS", "KNOWN", "team_names", "measured_teams", "make_team", "measure", "landmark_walk", "strongest"]
 
 ALWAYS = ("random",)
 _SPREAD = "mpe2.simple_spread_v3:"
@@ -60,6 +60,13 @@ def team_names(env_name: str) -> tuple[str, ...]:
     if env_name.startswith(_SPREAD):
         names.append("landmark_walk")
     return tuple(names)
+
+
+def measured_teams(cfg: Any) -> tuple[str, ...]:
+    """The non-learning teams a run of ``cfg`` (a RunConfig) measures: ``train.baselines: auto`` gives
+    every team that applies to the env, a list gives random and the teams listed."""
+    wanted = cfg.train.baselines
+    return team_names(cfg.env.name) if wanted == "auto" else tuple(dict.fromkeys(["random", *wanted]))
 
 
 def landmark_walk(num_agents: int, lead: float = 0.3, close: float = 0.05) -> Callable[[np.ndarray], np.ndarray]:

@@ -411,6 +411,12 @@ def _report(args: argparse.Namespace) -> int:
         raise UsageError(f"--test = {args.test!r} is not allowed; expected mannwhitney or welch")
     out = write_report(args.sweep_dir, test=args.test)
     print(f"report: {out / 'report.md'}  runs: {out / 'runs.csv'}  figures: {out / 'figures'}")
+    found = json.loads((out / "findings.json").read_text())["findings"]
+    expected = [f for f in found if f["expected"]]
+    for f in expected:  # the study's stated expectations, one sentence each (the rest: report.md, Findings)
+        print(f["sentence"])
+    if found and len(expected) < len(found):
+        print(f"{len(found) - len(expected)} more finding(s) in report.md, section Findings")
     if is_smoke_test(args.sweep_dir):
         print("a smoke test (smoke_test: true in its spec): the runs are too short to learn, so the numbers "
               "say nothing about the arms")

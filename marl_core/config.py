@@ -433,6 +433,8 @@ class MADDPGConfig(_LearnerBase):
     gumbel_temperature: float = Field(1.0, gt=0.0, description="temperature of the straight-through "
                                       "Gumbel-softmax")
     actor_reg: float = Field(1e-3, ge=0.0, description="penalty on the actors' squared logits")
+    actor_every: _PositiveInt = Field(1, description="one actor step (and target-actor update) every k "
+                                      "critic steps; 1 = both every update")
     explore_eps_start: float = Field(0.3, ge=0.0, le=1.0, description="share of uniform random actions "
                                      "mixed into actor sampling at the start")
     explore_eps_end: float = Field(0.02, ge=0.0, le=1.0, description="share of uniform random actions after "
@@ -974,7 +976,11 @@ def config_to_dict(cfg: RunConfig) -> dict[str, Any]:
 
 # learner keys added after the first release -> the value that behaves as the first release did
 # (a bit-packed replay samples bit for bit what the plain one does)
-_ADDED_LEARNER_KEYS: dict[str, Any] = {"pack_replay": True, "replay_ratio": None, "conv_strides": None}
+_ADDED_LEARNER_KEYS: dict[str, Any] = {"pack_replay": True, "replay_ratio": None, "conv_strides": None,
+                                        "actor_every": 1}
+# game parameters added after the first release -> the value that plays as before
+_ADDED_GAME_PARAMS: dict[str, Any] = {"regrow_scale": 1.0}
+_NOT_SET = object()
 
 
 def config_hash(cfg: RunConfig) -> str:
@@ -987,6 +993,10 @@ def config_hash(cfg: RunConfig) -> str:
     for key, neutral in _ADDED_LEARNER_KEYS.items():
         if key in data["learner"] and data["learner"][key] == neutral:
             del data["learner"][key]
+    params = data["env"].get("params")
+    for key, neutral in _ADDED_GAME_PARAMS.items():
+        if isinstance(params, dict) and params.get(key, _NOT_SET) == neutral:
+            del params[key]
     text = json.dumps(data, sort_keys=True, separators=(",", ":"), default=str)
     return hashlib.sha256(text.encode("utf-8")).hexdigest()[:12]
 

@@ -238,7 +238,19 @@ class MADDPG:
         self._clip(self.critic.nets)
         self.critic_opt.step()
 
-        # actors: maximise Q_i(x, a_1.., a_i ~ pi_i(o_i), .., a_N) with the others' replayed actions
+        polyak_update(self.target_critic, self.critic, cfg.tau)
+        self.updates += 1
+        self.priorities = td.detach().abs().mean(dim=1).numpy()
+        stats = {"critic_loss": float(critic_loss.detach()), "q_mean": float(q.detach().mean())}
+        if (self.updates - 1) % cfg.actor_every == 0:  # updates 1, 1 + k, 1 + 2k, ...: the first one acts
+            stats["actor_loss"] = self._actor_step(obs, x, actions)
+        return stats
+
+    def _actor_step(self, obs: torch.Tensor, x: torch.Tensor, actions: torch.Tensor) -> float:
+        """Maximise Q_i(x, a_1.., a_i ~ pi_i(o_i), .., a_N) with the others' replayed actions; then move
+        the target actors. Returns the actor loss."""
+        cfg = self.cfg
+        K, N, A = actions.shape
         logits = self.actors(obs)  # (K, N, A)
         sample = gumbel_softmax_st(logits, cfg.gumbel_temperature, self.gen)
         eye = torch.eye(N).view(N, 1, N, 1)  # block i replaces agent i's action
@@ -254,13 +266,8 @@ class MADDPG:
         self.critic_opt.zero_grad(set_to_none=True)  # no gradient stays on the critic for a later step
         self._clip(self.actors.groups())
         self.actor_opt.step()
-
-        polyak_update(self.target_critic, self.critic, cfg.tau)
         polyak_update(self.target_actors, self.actors, cfg.tau)
-        self.updates += 1
-        self.priorities = td.detach().abs().mean(dim=1).numpy()
-        return {"critic_loss": float(critic_loss.detach()), "actor_loss": float(actor_loss.detach()),
-                "q_mean": float(q.detach().mean())}
+        return float(actor_loss.detach())
 
     def _clip(self, groups) -> None:
         if self.cfg.grad_clip:

@@ -14,13 +14,12 @@ from typing import Any
 
 import numpy as np
 
-from envs.metrics import METRIC_NAMES, social_outcomes
+from envs.metrics import BEHAVIOUR_NAMES, METRIC_NAMES, social_outcomes
 from marl_core.team_env import Step, TeamEnv
 
 __all__ = ["Collector", "evaluate", "random_policy", "BEHAVIOUR"]
 
-# Behaviour measures: per-agent event counts our games report in their infos, summed over an episode
-BEHAVIOUR: tuple[str, ...] = ("resources_taken", "tags_fired", "times_tagged", "waste_removed")
+BEHAVIOUR: tuple[str, ...] = BEHAVIOUR_NAMES  # envs.metrics: per-agent event counts per episode
 
 Policy = Callable[[np.ndarray], np.ndarray]  # obs (B, N, ...) -> actions (B, N)
 

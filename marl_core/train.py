@@ -61,7 +61,7 @@ import torch
 
 from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
-from marl_core.baselines import team_names
+from marl_core.baselines import measured_teams
 from marl_core.config import RunConfig, config_hash, dump_config, load_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
@@ -276,7 +276,7 @@ class _Run:
 
     def measure_baselines(self) -> None:
         t = self.cfg.train
-        self.baselines = measure_baselines(self.eval_env, _baseline_names(self.cfg), t.eval_episodes,
+        self.baselines = measure_baselines(self.eval_env, measured_teams(self.cfg), t.eval_episodes,
                                            t.seed + EVAL_SEED_OFFSET, _result)
 
     # -- the loop
@@ -351,7 +351,7 @@ class _Run:
                     self.learn_steps = self.env_steps - B
                 for _ in range(updates):
                     batch = self.replay.sample(L.batch_size, beta=beta)
-                    stats = self.learner.update(batch)
+                    stats.update(self.learner.update(batch))  # latest of each key: not every update has all
                     if prioritized:
                         self.replay.update_priorities(batch["indices"], self.learner.priorities)
             log_steps += 1
@@ -410,11 +410,6 @@ def _eval_env(cfg: RunConfig, episodes: int, render: bool):
     e = cfg.env
     return make_team_env(e.name, e.params, min(episodes, MAX_EVAL_COPIES), cfg.train.seed + EVAL_SEED_OFFSET,
                          render=render, with_state=False)
-
-
-def _baseline_names(cfg: RunConfig) -> tuple[str, ...]:
-    wanted = cfg.train.baselines
-    return team_names(cfg.env.name) if wanted == "auto" else tuple(dict.fromkeys(["random", *wanted]))
 
 
 def _fresh_dir(out: Path) -> None:
@@ -494,7 +489,7 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
     r.eval_env.close()
     with _eval_env(cfg, n, render=gif is not None) as env:
         ev = evaluate(env, lambda o: r.learner.act(o, explore=False), n, seed, gif=gif is not None)
-        baselines = measure_baselines(env, _baseline_names(cfg), n, seed, _result)
+        baselines = measure_baselines(env, measured_teams(cfg), n, seed, _result)
     if gif is not None:
         from envs.render import write_gif
 

@@ -103,7 +103,8 @@ __all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measur
 
 LEARNERS: tuple[str, ...] = ("idqn", "maddpg")
 GAME, LAYOUT = "harvest_v0", "harvest_small"
-TARGETS: dict[str, float] = {"speedup_min_idqn": 3.0, "speedup_min_maddpg": 5.0, "replay_bytes_ratio_max": 0.15}
+TARGETS: dict[str, float] = {"speedup_min_idqn": 3.0, "speedup_min_maddpg": 5.0, "replay_bytes_ratio_max": 0.15,
+                             "seconds_to_beat_greedy_max": 60.0}
 DEFAULT_SECONDS = 30.0  # target length of the measured window when --steps is not given
 DEFAULT_WARMUP_UPDATES = 3
 _BARE_REPEATS = 3
@@ -337,6 +338,7 @@ def measure_bare(cfg: Any, seconds: float) -> dict[str, Any]:
     env.close()
     learner = build_learner(spec, cfg.learner, cfg.train.seed)
     batch = _fixed_batch(spec, cfg.learner, cfg.train.seed)
+    flops = update_flops(learner, batch)
     update = learner.update
     t, warm = time.perf_counter(), 0
     while warm < 5 or time.perf_counter() - t < 0.1 * seconds:
@@ -352,7 +354,39 @@ def measure_bare(cfg: Any, seconds: float) -> dict[str, Any]:
         rates.append(n / (time.perf_counter() - t))
         cpu_rates.append(n / (time.process_time() - c))
     return {"best": max(rates), "median": sorted(rates)[len(rates) // 2], "repeats": rates,
-            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm}
+            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm, "flops": flops}
+
+
+def update_flops(learner: Any, batch: dict[str, Any]) -> int:
+    """Floating-point operations of one ``learner.update`` on ``batch`` (a multiply-add counts 2), counted
+    by ``torch.utils.flop_counter.FlopCounterMode`` over the matrix products and convolutions, forward and
+    backward; elementwise work is not counted. The counted update is a real one (it moves the learner)."""
+    from torch.utils.flop_counter import FlopCounterMode
+
+    with FlopCounterMode(display=False) as counter:
+        learner.update(batch)
+    return int(counter.get_total_flops())
+
+
+def matmul_gflops(size: int = 512, seconds: float = 1.0) -> dict[str, Any]:
+    """What the core does on a plain float32 matrix product ``size`` x ``size`` with the current torch
+    threads: best of 5 timed repeats (2 size^3 FLOPs each product), the physical yardstick for
+    ``achieved_gflops``."""
+    import torch
+
+    a, b = torch.randn(size, size), torch.randn(size, size)
+    t, n = time.perf_counter(), 0
+    while n < 3 or time.perf_counter() - t < 0.2 * seconds:
+        torch.mm(a, b)
+        n += 1
+    reps = max(3, int(0.8 * seconds / 5 / ((time.perf_counter() - t) / n)))
+    best = 0.0
+    for _ in range(5):
+        t = time.perf_counter()
+        for _ in range(reps):
+            torch.mm(a, b)
+        best = max(best, 2 * size ** 3 * reps / (time.perf_counter() - t) / 1e9)
+    return {"size": size, "gflops": round(best, 2)}
 
 
 def bench_learner(kind: str, args: argparse.Namespace, settings: dict[str, Any] | None = None) -> dict[str, Any]:
@@ -425,6 +459,8 @@ def bench_learner(kind: str, args: argparse.Namespace, settings: dict[str, Any] 
         "timer_overhead_fraction": round(overhead / window, 5),
         "bare_update_per_s": round(bare["best"], 2),
         "bare_update_per_cpu_s": round(bare["cpu_best"], 2),
+        "gflop_per_update": round(bare["flops"] / 1e9, 4),
+        "achieved_gflops": round(bare["flops"] * bare["cpu_best"] / 1e9, 2),
         "bare_update_per_s_repeats": [round(x, 2) for x in bare["repeats"]],
         "bare_updates_per_repeat": bare["updates_per_repeat"],
         "loop_updates_per_s": round(updates / window, 2),
@@ -463,6 +499,78 @@ def bench_learner(kind: str, args: argparse.Namespace, settings: dict[str, Any] 
         "config": config_to_dict(cfg),
         "kind": kind,
     }
+
+
+QUICK_START = Path(__file__).resolve().parent.parent / "configs" / "harvest_idqn.yaml"
+TIME_TO_RESULT_SEEDS = 3
+TIME_TO_RESULT_EVAL_EVERY = 5000
+
+
+class _Beaten(Exception):
+    """Raised from the timed evaluation that first beats the scripted greedy team: the run stops there."""
+
+
+def seconds_to_beat_greedy(seed: int, eval_every: int, overrides: list[str]) -> dict[str, Any]:
+    """Train the quick-start config (``configs/harvest_idqn.yaml``) with seed ``seed`` and an evaluation
+    every ``eval_every`` env steps, and stop at the first evaluation whose efficiency (exploration off, the
+    config's evaluation episodes) is above the greedy team's on the same episodes. ``seconds`` is the wall
+    time from the first env step to the end of that evaluation, evaluations included (what a user waits);
+    ``training_seconds`` leaves the evaluations out. None for both if no evaluation beats it."""
+    from marl_core.config import dump_config, load_config
+    from marl_core.train import _Run
+
+    cfg = load_config(QUICK_START, [f"train.seed={seed}", f"train.eval_every={eval_every}",
+                                    "train.baselines=[greedy]", "log.tensorboard=false", "log.gif_every=0",
+                                    "log.progress=false", *overrides])
+    tmp = Path(tempfile.mkdtemp(prefix="bench_ttr_"))
+    try:
+        out = tmp / "run"
+        r = _Run(cfg, out, None)  # the steps of marl_core.train.run, with a handle on the run
+        out.mkdir(parents=True)
+        (out / "checkpoints").mkdir()
+        dump_config(cfg, out / "config.yaml")
+        r.open_logs(purge_step=None)
+        r.measure_baselines()  # outside the timing: the greedy team's figure is the bar, not the work
+        greedy = r.baselines["greedy"]["efficiency"]
+        evaluate, curve, spent = r.evaluate, [], [0.0]
+
+        def timed_evaluate(final: bool = False):
+            t = time.perf_counter()
+            ev = evaluate(final=final)
+            spent[0] += time.perf_counter() - t
+            curve.append((r.env_steps, round(ev["efficiency"], 4)))
+            if ev["efficiency"] > greedy:
+                raise _Beaten
+            return ev
+
+        r.evaluate = timed_evaluate
+        t0 = time.perf_counter()
+        try:
+            r.train()
+            beaten = False
+        except _Beaten:
+            beaten = True
+        wall = time.perf_counter() - t0
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return {"seed": seed, "seconds": round(wall, 2) if beaten else None,
+            "training_seconds": round(wall - spent[0], 2) if beaten else None,
+            "env_steps": curve[-1][0] if beaten else None, "greedy_efficiency": round(greedy, 4),
+            "curve": curve, "total_steps": cfg.train.total_steps}
+
+
+def time_to_result(seeds: int, eval_every: int, overrides: list[str]) -> dict[str, Any]:
+    """``seconds_to_beat_greedy``: the median over seeds 0 .. seeds-1 of :func:`seconds_to_beat_greedy`
+    (a seed that never beats the greedy team counts as infinitely slow, and the median is then None if
+    half or more never do), one run after the other in this process."""
+    import statistics
+
+    runs = [seconds_to_beat_greedy(seed, eval_every, overrides) for seed in range(seeds)]
+    key = [r["seconds"] if r["seconds"] is not None else float("inf") for r in runs]
+    median = statistics.median(key)
+    return {"config": "configs/harvest_idqn.yaml", "overrides": overrides, "eval_every": eval_every,
+            "seconds_to_beat_greedy": None if median == float("inf") else round(median, 2),
+            "target_seconds": TARGETS["seconds_to_beat_greedy_max"], "runs": runs}
 
 
 # The settings of the first release, pinned here so that the comparison stays the same as defaults move
@@ -528,7 +636,8 @@ def _table(report: dict[str, Any]) -> str:
     lines = [f"python {report['python']}  torch {report['torch']}  numpy {report['numpy']}  "
              f"{report['platform']}", f"cpu {report['cpu']} x{report['cpu_count']}", "",
              f"{'learner':<8}{'settings':<10}{'copies':>7}{'env steps/s':>12}{'env':>7}{'act':>7}{'update':>8}"
-             f"{'else':>7}{'unpack':>8}{'upd/s loop':>12}{'bare':>8}{'replay/raw':>12}{'cpu/wall':>10}"]
+             f"{'else':>7}{'unpack':>8}{'upd/s loop':>12}{'bare':>8}{'GFLOP/s':>9}{'replay/raw':>12}"
+             f"{'cpu/wall':>10}"]
     for kind in report["learners"]:
         for name in report["settings"]:
             r = report[kind][name]
@@ -537,15 +646,22 @@ def _table(report: dict[str, Any]) -> str:
             lines.append(f"{kind:<8}{name:<10}{r['stated_config']['num_envs']:>7}{r['env_steps_per_s']:>12,.0f}"
                          f"{f['env_step']:>7.1%}{f['act']:>7.1%}{f['update']:>8.1%}{f['everything_else']:>7.1%}"
                          f"{unpack:>8.1%}{r['loop_updates_per_s']:>12.1f}{r['bare_update_per_s']:>8.1f}"
-                         f"{r['replay_over_raw']:>12.3f}{r['cpu_time_over_wall']:>10.2f}")
+                         f"{r['achieved_gflops']:>9.1f}{r['replay_over_raw']:>12.3f}"
+                         f"{r['cpu_time_over_wall']:>10.2f}")
     lines += ["", "fractions of the window's wall time (unpack: of the update time); upd/s: per window "
-              "second, bare loop", "targets:"]
+              "second, bare loop; GFLOP/s: bare updates per CPU second x counted FLOPs, against "
+              f"{report['matmul_gflops']['gflops']:.1f} for a plain matrix product", "targets:"]
     for kind in report["learners"]:
         r = report[kind]
         speed = (f"speedup {r['speedup']:.2f}x (goal >= {TARGETS['speedup_min_' + kind]:g}x)"
                  if "speedup" in r else "speedup: needs both settings")
         lines.append(f"  {kind}: {speed}; replay bytes / raw obs bytes {r['replay_bytes_ratio']:.3f} "
                      f"(goal <= {TARGETS['replay_bytes_ratio_max']})")
+    if "time_to_result" in report:
+        t = report["time_to_result"]
+        per_seed = ", ".join("never" if r["seconds"] is None else f"{r['seconds']:.0f}" for r in t["runs"])
+        lines.append(f"  quick start beats the greedy team after {t['seconds_to_beat_greedy']} s, median "
+                     f"(seeds: {per_seed}; goal <= {TARGETS['seconds_to_beat_greedy_max']:g} s)")
     return "\n".join(lines)
 
 
@@ -577,13 +693,28 @@ def main(argv: list[str] | None = None) -> int:
                         help=f"env copies of the new settings (default {DEFAULT_NEW_NUM_ENVS})")
     parser.add_argument("--settings", type=_settings_list, default=list(SETTINGS),
                         help="comma-separated: previous, new (default both)")
+    parser.add_argument("--time-to-result", action="store_true",
+                        help="also time the quick-start config to beating the greedy team "
+                             f"(seconds_to_beat_greedy, median of {TIME_TO_RESULT_SEEDS} seeds)")
+    parser.add_argument("--ttr-seeds", type=positive(int), default=TIME_TO_RESULT_SEEDS,
+                        help=f"seeds of --time-to-result (default {TIME_TO_RESULT_SEEDS})")
+    parser.add_argument("--ttr-eval-every", type=positive(int), default=TIME_TO_RESULT_EVAL_EVERY,
+                        help=f"env steps between the evaluations of --time-to-result (default "
+                             f"{TIME_TO_RESULT_EVAL_EVERY})")
+    parser.add_argument("--ttr-set", action="append", default=[], metavar="KEY=VALUE",
+                        help="a config override for --time-to-result runs (repeatable)")
+    parser.add_argument("--skip-throughput", action="store_true",
+                        help="with --time-to-result: measure only the time to result")
     parser.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     args = parser.parse_args(argv)
+    if args.skip_throughput and not args.time_to_result:
+        parser.error("--skip-throughput needs --time-to-result")
 
     import numpy as np
     import torch
 
     from envs.errors import EnvError
+    from marl_core.config import load_config
     from marl_core.errors import ConfigError
     from marl_core.team_env import make_team_env
 
@@ -593,10 +724,26 @@ def main(argv: list[str] | None = None) -> int:
         make_team_env(cfg.env.name, cfg.env.params, 1, args.seed, with_state=False).close()
     except (ConfigError, EnvError) as err:
         parser.error(str(err))
+    if args.ttr_set:
+        try:
+            load_config(QUICK_START, args.ttr_set)
+        except ConfigError as err:
+            parser.error(f"--ttr-set: {err}")
     results = {}
-    for kind in args.learners:
+    learners = [] if args.skip_throughput else args.learners
+    for kind in learners:
         runs = {name: bench_learner(kind, args, settings_of(name, kind, args)) for name in args.settings}
         results[kind] = compared(runs)
+    torch.set_num_threads(args.torch_threads)
+    matmul = matmul_gflops()
+    for kind in results:
+        for name in args.settings:
+            run = results[kind][name]
+            run["achieved_over_matmul"] = round(run["achieved_gflops"] / matmul["gflops"], 3)
+    extra = {}
+    if args.time_to_result:
+        extra["time_to_result"] = time_to_result(args.ttr_seeds, args.ttr_eval_every, args.ttr_set)
+        extra["seconds_to_beat_greedy"] = extra["time_to_result"]["seconds_to_beat_greedy"]
     report = {
         "python": platform.python_version(),
         "torch": torch.__version__,
@@ -609,12 +756,18 @@ def main(argv: list[str] | None = None) -> int:
         "game": GAME,
         "layout": LAYOUT,
         "seed": args.seed,
-        "learners": args.learners,
+        "learners": learners,
         "settings": args.settings,
         "targets": TARGETS,
         "targets_met": {k: results[k]["targets_met"] for k in results},
+        "matmul_gflops": matmul,
+        **extra,
         **results,
     }
+    if args.time_to_result:
+        ttr = extra["seconds_to_beat_greedy"]
+        report["targets_met"]["seconds_to_beat_greedy_max"] = (
+            ttr is not None and ttr <= TARGETS["seconds_to_beat_greedy_max"])
     print(json.dumps(report, indent=2) if args.json else _table(report))
     return 0
 

@@ -1,7 +1,7 @@
 """Compare grid-window encoders by learning, at equal env steps over seeds, and by update speed.
 
-Usage: ``python scripts/compare_encoders.py [--configs harvest_idqn ...] [--variants first_release ...]
-[--seeds N] [--workers N] [--steps N] [--out DIR] [--json]``
+Usage: ``python scripts/compare_encoders.py [--configs harvest_idqn cleanup_tiny_idqn harvest_maddpg]
+[--variants first_release ...] [--seeds N] [--workers N] [--steps N] [--out DIR] [--json]``
 
 For every bundled config and encoder variant, trains the config over seeds 0 .. N-1 (``marl_core.ablation
 .runner.repeat``, ``--workers`` runs at a time, one torch thread each) with the variant's
@@ -37,7 +37,7 @@ VARIANTS: dict[str, dict] = {
     "stride2": {"learner.conv_channels": [16, 32], "learner.conv_strides": [2, 2]},
     "narrow": {"learner.conv_channels": [8, 16], "learner.conv_strides": None},
 }
-CONFIGS = ("harvest_idqn", "cleanup_idqn", "harvest_maddpg")
+CONFIGS = ("harvest_idqn", "cleanup_tiny_idqn", "harvest_maddpg")
 QUIET = {"log.tensorboard": False, "log.gif_every": 0, "log.progress": False}
 
 

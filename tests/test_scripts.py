@@ -26,3 +26,32 @@ def test_benchmark_runs_and_prints_json(args):
                           capture_output=True, text=True, timeout=240)
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert isinstance(json.loads(proc.stdout), dict)
+
+
+def test_bench_train_prints_its_headline_keys():
+    # scripts/bench_train.py docstring: the contract keys of the benchmark (the figures are not checked)
+    args = ["--steps", "32", "--bare-seconds", "0.2", "--warmup-updates", "1", "--num-envs", "2",
+            "--new-num-envs", "4", "--agents", "2", "--view-radius", "2", "--max-cycles", "50",
+            "--learners", "idqn", "--time-to-result", "--ttr-seeds", "1", "--ttr-eval-every", "1000",
+            "--ttr-set", "train.total_steps=2000", "--ttr-set", "learner.warmup_steps=500", "--json"]
+    proc = subprocess.run([sys.executable, str(ROOT / "scripts" / "bench_train.py"), *args], cwd=ROOT,
+                          capture_output=True, text=True, timeout=240)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    report = json.loads(proc.stdout)
+    for key in ("env_steps_per_s", "previous_env_steps_per_s", "speedup", "replay_bytes_ratio"):
+        assert key in report["idqn"], key
+    for name in ("previous", "new"):
+        assert report["idqn"][name]["gflop_per_update"] > 0 and report["idqn"][name]["achieved_over_matmul"] > 0
+    assert report["matmul_gflops"]["gflops"] > 0
+    assert "seconds_to_beat_greedy" in report  # None when 2000 steps do not beat the greedy team
+    (run,) = report["time_to_result"]["runs"]
+    first = run["curve"][0][0]  # the first vector step at or past 1000 (16 copies: 1008)
+    assert 1000 <= first < 1016
+
+
+def test_bench_train_refuses_a_bad_override_in_one_line():
+    proc = subprocess.run([sys.executable, str(ROOT / "scripts" / "bench_train.py"), "--time-to-result",
+                           "--ttr-set", "train.total_step=5"], cwd=ROOT, capture_output=True, text=True,
+                          timeout=60)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert "train.total_step" in proc.stderr.strip().splitlines()[-1]

@@ -57,19 +57,22 @@ from typing import Any
 import numpy as np
 import yaml
 
-from envs.metrics import METRIC_NAMES
+from envs.metrics import BEHAVIOUR_NAMES, METRIC_NAMES
 from marl_core.ablation import stats
 from marl_core.ablation.ledger import Ledger
 from marl_core.errors import ConfigError, MissingExtraError, RunDirError
-from marl_core.files import atomic_write
+from marl_core.files import atomic_write, write_json
 from marl_core.hints import command
 
-__all__ = ["write_report", "report_summary", "is_smoke_test", "METRICS", "HOLM_FAMILIES", "FEW_SEEDS",
+__all__ = ["write_report", "report_summary", "is_smoke_test", "METRICS", "BEHAVIOUR", "HOLM_FAMILIES", "FEW_SEEDS",
            "CONFIDENCE"]
 
 #: The metrics of the tables and figures, in display order; every one is higher-is-better.
 METRICS: tuple[str, ...] = ("return_mean", *METRIC_NAMES)
 HIGHER_IS_BETTER: dict[str, bool] = dict.fromkeys(METRICS, True)
+#: Behaviour measures (per agent per episode, mean over agents), reported beside the metrics when the runs
+#: record them; they have no better direction, so no arm is judged better or worse on them.
+BEHAVIOUR: tuple[str, ...] = BEHAVIOUR_NAMES
 #: ``holm_family`` values: one family per metric, or one family of every arm x metric comparison.
 HOLM_FAMILIES: tuple[str, ...] = ("metric", "all")
 #: Below this many done seeds an arm is flagged in the warnings (common practice (no source)).
@@ -85,6 +88,10 @@ _DESCRIPTIONS = {
     "equality": "1 − Gini coefficient of the agents' returns (NaN when returns differ and sum to ≤ 0)",
     "sustainability": "mean time step at which agents receive positive rewards (NaN when nobody scores)",
     "peace": "mean number of agents not tagged out per time step, in [0, N]",
+    "resources_taken": "resources taken per agent per episode (behaviour)",
+    "tags_fired": "tag beams fired per agent per episode (behaviour)",
+    "times_tagged": "times tagged out per agent per episode (behaviour)",
+    "waste_removed": "waste cells cleaned per agent per episode (behaviour)",
 }
 _TEST_NAMES = {"mannwhitney": "Mann–Whitney U", "welch": "Welch's t"}
 
@@ -157,7 +164,7 @@ def _read_curve(path: Path, problems: list[str]) -> dict[int, dict[str, Any]] | 
         except (ValueError, KeyError, TypeError):
             bad += 1  # e.g. a line cut short by a crash
             continue
-        out[step] = row
+        out[step] = {**row, **_behaviour(row)} if isinstance(row, dict) else row
     if bad:
         problems.append(f"`{path}`: {bad} unreadable line(s) skipped")
     return out
@@ -173,9 +180,18 @@ def _dig(data: Any, key: str) -> Any:
     return node
 
 
+def _behaviour(record: dict[str, Any]) -> dict[str, float]:
+    """The behaviour measures a summary or metrics.jsonl row records (``behaviour``: name -> count)."""
+    found = record.get("behaviour")
+    if not isinstance(found, dict):
+        return {}
+    return {k: _float(found[k]) for k in BEHAVIOUR if k in found}
+
+
 def _team_metrics(team: dict[str, Any]) -> dict[str, float]:
     """A non-learning team's entry of summary.json as metric -> float (NaN where missing)."""
     out = {m: _float(team.get(m)) for m in METRICS}
+    out.update(_behaviour(team))
     returns = team.get("returns")
     if not math.isfinite(out["return_mean"]) and isinstance(returns, dict) and returns:
         out["return_mean"] = float(np.mean([_float(v) for v in returns.values()]))
@@ -215,6 +231,7 @@ def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
         rec[key] = int(value) if isinstance(value, numbers.Real) and not isinstance(value, bool) else None
     for m in METRICS:
         rec[m] = _float(summary.get(m))
+    rec.update(_behaviour(summary))
     returns = summary.get("returns")
     if isinstance(returns, dict):
         rec["returns"] = {str(a): _float(v) for a, v in returns.items()}
@@ -367,6 +384,9 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     by_arm = {a: sorted((r for r in runs if r["arm"] == a), key=lambda r: r["seed"]) for a in arms}
     done = {a: [r for r in by_arm[a] if r["state"] == "done"] for a in arms}
     warns: list[str] = []
+    # the metrics, then the behaviour measures some done run records (e.g. waste_removed on cleanup only)
+    measures = [*METRICS, *(b for b in BEHAVIOUR
+                            if any(math.isfinite(r.get(b, math.nan)) for a in arms for r in done[a]))]
 
     # ---- baseline
     baseline = data["baseline"]
@@ -384,19 +404,19 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     for a in arms:
         states = {s: sum(r["state"] == s for r in by_arm[a]) for s in ("done", "failed", "pending", "running")}
         per_metric = {}
-        for m in METRICS:
-            x = np.array([r[m] for r in done[a]], dtype=float)
+        for m in measures:
+            x = np.array([r.get(m, math.nan) for r in done[a]], dtype=float)
             s = stats.summarize(x, reps=reps, seed=seed, confidence=CONFIDENCE)
             team_means = {t: _finite_mean([r["baselines"].get(t, {}).get(m, math.nan) for r in done[a]])
                           for t in teams}
             team_means = {t: v for t, v in team_means.items() if math.isfinite(v)}
             best = max(team_means, key=team_means.__getitem__) if team_means else None
             entry = {**s, "nan_dropped": int(np.isnan(x).sum()),
-                     "random_mean": _finite_mean([r["random"][m] for r in done[a]]),
+                     "random_mean": _finite_mean([r["random"].get(m, math.nan) for r in done[a]]),
                      "teams": team_means, "best_team": best,
                      "best_team_mean": team_means[best] if best is not None else math.nan,
                      "beats_best_team": None}
-            if best is not None and math.isfinite(s["mean"]):
+            if best is not None and math.isfinite(s["mean"]) and m in HIGHER_IS_BETTER:
                 entry["beats_best_team"] = bool(s["mean_ci"][0] > entry["best_team_mean"])  # NaN: False
                 if not entry["beats_best_team"]:
                     not_better.append(_not_better(a, m, entry))
@@ -411,12 +431,14 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     if baseline in by_arm and others:
         for a in others:
             comparisons[a] = {}
-            for m in METRICS:
-                xa = np.array([r[m] for r in done[a]], dtype=float)
-                xb = np.array([r[m] for r in done[baseline]], dtype=float)
+            for m in measures:
+                xa = np.array([r.get(m, math.nan) for r in done[a]], dtype=float)
+                xb = np.array([r.get(m, math.nan) for r in done[baseline]], dtype=float)
                 comparisons[a][m] = stats.compare(xa, xb, test, reps=reps, confidence=CONFIDENCE, seed=seed)
-        families = ([[(a, m) for a in others] for m in METRICS] if holm_family == "metric"
-                    else [[(a, m) for m in METRICS for a in others]])
+        families = ([[(a, m) for a in others] for m in measures] if holm_family == "metric"
+                    else [[(a, m) for m in METRICS for a in others],
+                          [(a, m) for m in measures if m not in HIGHER_IS_BETTER for a in others]])
+        families = [f for f in families if f]
         for family in families:
             adjusted = stats.holm([comparisons[a][m]["p_value"] for a, m in family])
             for (a, m), p in zip(family, adjusted):
@@ -432,7 +454,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                          f"{len(with_curve)} seed(s).")
         steps = sorted(set.intersection(*(set(r["curve"]) for r in with_curve))) if with_curve else []
         curves[a] = {"seeds": len(with_curve), "env_steps": steps}
-        for m in METRICS:
+        for m in measures:
             if not steps:
                 curves[a][m] = {"mean": [], "ci_low": [], "ci_high": []}
                 continue
@@ -461,7 +483,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
             warns.append(f"Arm `{a}` has {n} done seeds (of {arm_info[a]['runs']}), fewer than {FEW_SEEDS}: "
                          "its intervals are wide and rough, its tests weak.")
     for a in arms:
-        for m in METRICS:
+        for m in METRICS:  # a behaviour measure a game does not record is simply absent, not a warning
             k = arm_info[a]["metrics"][m]["nan_dropped"]
             if k:
                 why = {"sustainability": " (no agent received a positive reward)",
@@ -474,7 +496,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
             if c.get("warning"):
                 seen.setdefault((a, c["warning"]), []).append(m)
     for (a, text), ms in seen.items():
-        which = "every metric" if len(ms) == len(METRICS) else ", ".join(ms)
+        which = "every metric" if len(ms) == len(measures) else ", ".join(ms)
         warns.append(f"`{a}` vs baseline `{baseline}` ({which}): {text}")
     for r in runs:
         warns.extend(r["problems"])
@@ -486,17 +508,161 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     learners = sorted({str(_dig(c, "learner.kind")) for c in configs
                        if _dig(c, "learner.kind") is not _MISSING})
     spec = data["spec"] or {}
+    expect = spec.get("expect") if isinstance(spec.get("expect"), dict) else {}
+    axes = _axes(arms, by_arm, done) if arms else {}
+    numeric = [k for k, ax in axes.items() if ax["numeric"]]
+    along = (numeric[0] if len(axes) == 1 and numeric and list(axes[numeric[0]]["groups"]) == ["all arms"]
+             else None)
+    against = spec.get("against")
+    if isinstance(against, str) and len(arms) == 1:
+        findings = _team_findings(measures, arms[0], against, done[arms[0]], arm_info[arms[0]], expect)
+        if not any(against in r["baselines"] for r in done[arms[0]]):
+            warns.append(f"The spec compares with the `{against}` team, which no done run measured.")
+    elif along is not None:
+        findings = _axis_findings(along, axes[along], measures, arms, done, arm_info, expect, test, reps, seed)
+    elif comparisons:
+        findings = _baseline_findings(measures, baseline, comparisons, expect, test)
+    else:
+        findings = []
+    missing = [m for m in expect if m not in measures]
+    if missing:
+        warns.append(f"The spec expects a direction for {', '.join(missing)}, which no done run records.")
     return {
         "sweep_dir": data["sweep_dir"], "baseline": baseline, "arms": arm_info, "arm_order": arms,
-        "comparisons": comparisons, "curves": curves, "axes": _axes(arms, by_arm, done) if arms else {},
+        "comparisons": comparisons, "curves": curves, "axes": axes, "findings": findings,
+        "findings_along": along, "expect": expect,
         "baseline_teams": teams, "not_better": not_better, "coverage": stats.MEASURED_COVERAGE,
         "interval_methods": stats.INTERVAL_METHODS,
         "warnings": warns, "failed": failed, "runs_total": total, "runs_done": n_done,
         "test": test, "reps": reps, "seed": seed, "confidence": CONFIDENCE, "holm_family": holm_family,
-        "metrics": list(METRICS), "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
+        "metrics": list(METRICS), "measures": measures, "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
         "smoke_test": spec.get("smoke_test") is True,
         "runs": [{k: v for k, v in r.items() if k not in ("config", "curve", "problems")} for r in runs],
     }
+
+
+def _observed(low: float, high: float, p: float) -> str | None:
+    """The direction the data show: ``increases`` / ``decreases`` when the corrected p is below
+    ``stats.ALPHA`` and the interval lies on that side of 0, ``no_change`` when it is not, None without
+    data."""
+    if not math.isfinite(p):
+        return None
+    if p < stats.ALPHA and low > 0:
+        return "increases"
+    if p < stats.ALPHA and high < 0:
+        return "decreases"
+    return "no_change"
+
+
+def _verdict(expected: str | None, observed: str | None) -> str | None:
+    if expected is None:
+        return None
+    if observed is None:
+        return "untested"
+    if expected == observed:
+        return "agrees"
+    return "disagrees"
+
+
+_SAYS = {"increases": "rises", "decreases": "falls", "no_change": "shows no clear change"}
+_VERDICT_TEXT = {"agrees": "agree", "disagrees": "do not agree", "untested": "cannot test it (too few runs)"}
+
+
+def _verdict_clause(expected: str | None, verdict: str | None) -> str:
+    if expected is None:
+        return ""
+    extra = (" (no change detected is not proof of none)" if expected == "no_change" and verdict == "agrees"
+             else "")
+    return f" Expected: {expected.replace('_', ' ')}; the data {_VERDICT_TEXT[verdict]}{extra}."
+
+
+def _axis_findings(key: str, axis: dict[str, Any], measures: list[str], arms: list[str],
+                   done: dict[str, list[dict]], arm_info: dict[str, Any], expect: dict[str, str],
+                   test: str, reps: int, seed: int | None) -> list[dict[str, Any]]:
+    """One finding per measure along the numeric axis ``key``: Spearman's trend over every done run
+    (Holm-corrected over the measures) and the difference between the arms at the axis's two ends."""
+    members = axis["groups"]["all arms"]
+    lo_arm, hi_arm = members[0], members[-1]
+    xs = [float(axis["values"][a]) for a in members for _ in done[a]]
+    trends = {m: stats.trend(xs, [r.get(m, math.nan) for a in members for r in done[a]]) for m in measures}
+    tested = [m for m in measures if math.isfinite(trends[m]["p_value"])]
+    adjusted = dict(zip(tested, stats.holm([trends[m]["p_value"] for m in tested]))) if tested else {}
+    out = []
+    for m in measures:
+        t = trends[m]
+        hi = np.array([r.get(m, math.nan) for r in done[hi_arm]], dtype=float)
+        lo = np.array([r.get(m, math.nan) for r in done[lo_arm]], dtype=float)
+        c = stats.compare(hi, lo, test, reps=reps, confidence=CONFIDENCE, seed=seed)
+        p_holm = float(adjusted.get(m, math.nan))
+        rho = t["rho"]
+        observed = None if not math.isfinite(p_holm) else (
+            "no_change" if p_holm >= stats.ALPHA else "increases" if rho > 0 else "decreases")
+        expected = expect.get(m)
+        verdict = _verdict(expected, observed)
+        says = "cannot be tested (too few runs or no spread)" if observed is None else _SAYS[observed]
+        mean = {a: _num(arm_info[a]["metrics"][m]["mean"]) for a in (lo_arm, hi_arm)}
+        sentence = (f"{m} {says} as {key} rises: {mean[lo_arm]} at {key} = {_short(axis['values'][lo_arm])} "
+                    f"and {mean[hi_arm]} at {_short(axis['values'][hi_arm])} (difference "
+                    f"{_with_ci(c['difference'], c['difference_ci'])}, {CONFIDENCE:.0%} Welch t); Spearman "
+                    f"rho = {_num(rho, 2)} over {t['n']} runs, p (Holm over {len(tested)} measures) = "
+                    f"{_pval(p_holm)}.{_verdict_clause(expected, verdict)}")
+        out.append({"measure": m, "along": key, "arm": hi_arm, "against": lo_arm, "rho": rho, "n": t["n"],
+                    "p_value": t["p_value"], "p_holm": p_holm, "difference": c["difference"],
+                    "difference_ci": c["difference_ci"], "observed": observed, "expected": expected,
+                    "verdict": verdict, "sentence": sentence})
+    return out
+
+
+def _team_findings(measures: list[str], arm: str, team: str, done: list[dict], arm_info: dict[str, Any],
+                   expect: dict[str, str]) -> list[dict[str, Any]]:
+    """One finding per measure: the arm against the non-learning team ``team``, paired within each run
+    (the same evaluation episodes), Holm-corrected over the measures."""
+    pairs = {m: stats.paired([r.get(m, math.nan) for r in done],
+                             [r["baselines"].get(team, {}).get(m, math.nan) for r in done], CONFIDENCE)
+             for m in measures}
+    tested = [m for m in measures if math.isfinite(pairs[m]["p_value"])]
+    adjusted = dict(zip(tested, stats.holm([pairs[m]["p_value"] for m in tested]))) if tested else {}
+    out = []
+    for m in measures:
+        c, p_holm = pairs[m], float(adjusted.get(m, math.nan))
+        if not any(m in r["baselines"].get(team, {}) and math.isfinite(r["baselines"][team][m]) for r in done):
+            continue  # the team does not record this measure (e.g. waste removed by a harvest team)
+        observed = _observed(*c["difference_ci"], p_holm)
+        expected = expect.get(m)
+        verdict = _verdict(expected, observed)
+        says = {"increases": "is higher than", "decreases": "is lower than",
+                "no_change": "shows no clear difference from", None: "cannot be compared (too few runs) with"}
+        sentence = (f"{m} of `{arm}` {says[observed]} the `{team}` team's: "
+                    f"{_num(arm_info['metrics'][m]['mean'])} "
+                    f"against {_num(arm_info['metrics'][m]['teams'].get(team, math.nan))}, paired difference "
+                    f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} t over {c['n']} runs), "
+                    f"p (paired t, Holm over {len(tested)} measures) = {_pval(p_holm)}."
+                    f"{_verdict_clause(expected, verdict)}")
+        out.append({"measure": m, "along": None, "arm": arm, "against": team, "p_holm": p_holm,
+                    "difference": c["difference"], "difference_ci": c["difference_ci"], "observed": observed,
+                    "expected": expected, "verdict": verdict, "sentence": sentence})
+    return out
+
+
+def _baseline_findings(measures: list[str], baseline: str, comparisons: dict[str, dict[str, Any]],
+                       expect: dict[str, str], test: str) -> list[dict[str, Any]]:
+    """One finding per arm and measure against the baseline, from Table 2's numbers."""
+    out = []
+    for m in measures:
+        for a, per in comparisons.items():
+            c = per[m]
+            observed = _observed(*c["difference_ci"], c.get("p_holm", math.nan))
+            expected = expect.get(m)
+            verdict = _verdict(expected, observed)
+            says = "cannot be tested (too few runs)" if observed is None else _SAYS[observed]
+            sentence = (f"{m} {says} in `{a}` against the baseline `{baseline}`: difference "
+                        f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} Welch t), "
+                        f"p ({_TEST_NAMES[test]}, Holm) = {_pval(c.get('p_holm', math.nan))}."
+                        f"{_verdict_clause(expected, verdict)}")
+            out.append({"measure": m, "along": None, "arm": a, "against": baseline, "p_holm": c.get("p_holm"),
+                        "difference": c["difference"], "difference_ci": c["difference_ci"],
+                        "observed": observed, "expected": expected, "verdict": verdict, "sentence": sentence})
+    return out
 
 
 def report_summary(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: int = 2000,
@@ -553,7 +719,8 @@ def _runs_csv(summary: dict[str, Any]) -> str:
     keys = list(dict.fromkeys(k for r in runs for k in r["overrides"]))
     agents = sorted({a for r in runs for a in r["returns"]})
     teams = list(dict.fromkeys(t for r in runs for t in r["baselines"]))
-    header = (["run_id", "arm", "seed", "state", "duration", *keys, "env_steps", "episodes", *METRICS,
+    measures = summary["measures"]
+    header = (["run_id", "arm", "seed", "state", "duration", *keys, "env_steps", "episodes", *measures,
                *(f"return/{a}" for a in agents), *(f"random/{m}" for m in METRICS),
                *(f"baseline/{t}/{m}" for t in teams for m in METRICS), "error"])
     buf = io.StringIO()
@@ -562,7 +729,7 @@ def _runs_csv(summary: dict[str, Any]) -> str:
     for r in runs:
         w.writerow([_cell(v) for v in (
             r["run_id"], r["arm"], r["seed"], r["state"], r["duration"],
-            *(r["overrides"].get(k) for k in keys), r["env_steps"], r["episodes"], *(r[m] for m in METRICS),
+            *(r["overrides"].get(k) for k in keys), r["env_steps"], r["episodes"], *(r.get(m) for m in measures),
             *(r["returns"].get(a) for a in agents), *(r["random"][m] for m in METRICS),
             *(r["baselines"].get(t, {}).get(m) for t in teams for m in METRICS), r["error"])])
     return buf.getvalue()
@@ -641,6 +808,33 @@ def _team_cell(s: dict[str, Any], team: str) -> str:
     return f"**{text}**" if team == s["best_team"] else text
 
 
+def _findings_lines(summary: dict[str, Any]) -> list[str]:
+    """The Findings section: one sentence per measure (and arm), the expected ones first."""
+    found = summary["findings"]
+    if not found:
+        return ["No finding: the sweep has neither a numeric axis nor an arm to compare with the baseline.", ""]
+    along = summary["findings_along"]
+    against = found[0]["against"]
+    if along:
+        head = (f"Along `{along}`: each measure's trend over every done run (Spearman's rank correlation, "
+                "Holm-corrected over the measures), with the difference between the arms at the two ends of "
+                "the axis.")
+    elif against == summary["baseline"]:
+        head = f"Each arm against the baseline `{against}` (Table 2's numbers)."
+    else:
+        head = (f"The arm against the non-learning `{against}` team, paired within each run (both play the "
+                "same evaluation episodes).")
+    if summary["expect"]:
+        head += (" The spec states an expected direction for " + ", ".join(f"{m} ({d.replace('_', ' ')})"
+                                                                     for m, d in summary["expect"].items())
+                 + f"; a direction counts as shown when its corrected p is below {stats.ALPHA}.")
+    lines = [head, ""]
+    ordered = [f for f in found if f["expected"]] + [f for f in found if not f["expected"]]
+    lines.extend(f"- {f['sentence']}" for f in ordered)
+    lines.append("")
+    return lines
+
+
 def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: bool = True) -> str:
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
     test_name = _TEST_NAMES[summary["test"]]
@@ -651,7 +845,8 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
               "and return_mean and efficiency are nearly the same number)"
               if summary["holm_family"] == "metric" else
               f"one family of every arm × metric comparison ({n_others} × {len(METRICS)} = "
-              f"{n_others * len(METRICS)})")
+              f"{n_others * len(METRICS)})" + (", and one of every arm × behaviour measure comparison"
+                                               if len(summary["measures"]) > len(METRICS) else ""))
     L: list[str] = []
     add = L.append
     add("# Sweep report\n")
@@ -673,6 +868,8 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     add(f"- **Runs:** {summary['runs_done']} of {summary['runs_total']} done" + (f" ({rest})" if rest else ""))
     add("")
 
+    add("## Findings\n")
+    L.extend(_findings_lines(summary))
     add("## Notes on method\n")
     add(f"- **Test:** {_test_sentence(summary['test'])}")
     add("- **IQM:** interquartile mean (Agarwal et al. 2021), the mean of the middle 50% of seeds "
@@ -713,7 +910,12 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         + (f"; {', '.join(f'*{_md(t)}*' for t in teams)} = mean of that non-learning team over the arm's "
            "runs (measured in each run beside the learned team), the strongest in bold" if teams else
            "; no run records a non-learning team") + ".\n")
-    for m in METRICS:
+    behaviour = [m for m in summary["measures"] if m not in METRICS]
+    for m in summary["measures"]:
+        if m == (behaviour or [None])[0]:
+            add("### Behaviour\n")
+            add("What the agents did, per agent per episode (the mean over agents), beside the metrics: these "
+                "have no better direction, so no arm is judged better or worse on them.\n")
         add(f"### {m}\n")
         add(f"{_DESCRIPTIONS[m]}.\n")
         add(f"| arm | n | mean [{pct} CI, Student t] | IQM [{pct} CI, trimmed t] | std |"
@@ -756,8 +958,9 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         add(f"Difference = mean(arm) − mean(baseline `{base}`) with its {pct} Welch t interval; p = "
             f"{test_name}, two-sided; p (Holm) = Holm-adjusted {holm_text}; P(arm > baseline) = the "
             "probability that a random seed of the arm beats a random seed of the baseline (ties count "
-            "half; 0.5 = no tendency). Every metric here is higher-is-better.\n")
-        for m in METRICS:
+            "half; 0.5 = no tendency). Every metric here is higher-is-better; a behaviour measure (the "
+            "last tables, if any) has no better direction: P(arm > baseline) there is only a direction.\n")
+        for m in summary["measures"]:
             add(f"### {m}\n")
             add(f"| arm | n arm / base | difference [{pct} CI, Welch t] | p ({test_name}) | p (Holm, {holm_label}) "
                 "| P(arm > baseline) |")
@@ -963,16 +1166,16 @@ def _figures(summary: dict[str, Any], out: Path) -> dict[str, list[str]]:
     palette = _colours(max(1, len(arms)))
     colours = dict(zip(arms, palette))
     made: dict[str, list[str]] = {"curve": [], "bars": [], "axis": []}
-    for m in METRICS:
+    for m in summary["measures"]:
         if _curve_figure(summary, m, out / f"curve_{m}.png", colours):
             made["curve"].append(f"figures/curve_{m}.png")
-    for m in METRICS:
+    for m in summary["measures"]:
         if _bars_figure(summary, m, out / f"bars_{m}.png", colours):
             made["bars"].append(f"figures/bars_{m}.png")
     for key, axis in summary["axes"].items():
         if not axis["numeric"]:
             continue
-        for m in METRICS:
+        for m in summary["measures"]:
             name = f"axis_{_file_part(key)}_{m}.png"
             if _axis_figure(summary, key, m, out / name, palette):
                 made["axis"].append(f"figures/{name}")
@@ -1011,5 +1214,7 @@ def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: 
         for old in (out / "figures").glob("*.png"):  # no stale figures beside a report that links none
             old.unlink()
     _write_text(out / "runs.csv", _runs_csv(summary))
+    write_json(out / "findings.json", {"along": summary["findings_along"], "baseline": summary["baseline"],
+                                       "expect": summary["expect"], "findings": summary["findings"]})
     _write_text(out / "report.md", _markdown(summary, drawn, figures))
     return out

@@ -16,6 +16,12 @@ A spec (every key but ``base`` and ``seeds`` may be left out)::
     baseline: narrow_view/kind=idqn,share_parameters=false   # required with more than one arm
     smoke_test: false                 # true: runs too short to learn; the sweep checks that the pipeline
                                       # works, and its report says so at the top (default false)
+    expect:                           # the study's expected finding: measure -> increases | decreases |
+      tags_fired: decreases           # no_change, along the one numeric axis (when the spec has exactly
+      peace: increases                # one axis and its values are numbers) or else each arm against the
+                                      # baseline; the report says whether the data agree (default none)
+    against: restrained               # one arm only: the findings compare it with this non-learning team,
+                                      # paired within each run (default: no such comparison)
 
 Arms and their names, in the order written:
 
@@ -66,6 +72,7 @@ from pathlib import Path
 from typing import Any
 
 import envs
+from envs.metrics import BEHAVIOUR_NAMES, METRIC_NAMES
 from envs.params import nearest
 from marl_core.config import (
     RENAMED,
@@ -82,7 +89,12 @@ from marl_core.errors import ConfigError
 __all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "load_spec", "parse_spec", "sweep_table"]
 
 #: The keys a spec may have.
-SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test")
+SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test",
+                              "expect", "against")
+#: ``expect`` values: the direction a study expects a measure to move (marl_core.ablation.report findings)
+EXPECT_DIRECTIONS: tuple[str, ...] = ("increases", "decreases", "no_change")
+#: what ``expect`` may name: the report's metrics and behaviour measures
+EXPECT_MEASURES: tuple[str, ...] = ("return_mean", *METRIC_NAMES, *BEHAVIOUR_NAMES)
 _COMBINE = ("product", "zip")
 _SECTIONS = ("env", "learner", "train", "log")
 _PARAMS = "env.params."
@@ -138,6 +150,9 @@ class Sweep:
         base_path: the base config file, or ``None`` for an inline base.
         smoke_test: the spec's ``smoke_test``: the runs are too short to learn, so the sweep tests the
             pipeline, not the arms (the report says so at the top). Not part of ``spec_hash``.
+        expect: the spec's ``expect``, measure -> ``increases`` / ``decreases`` / ``no_change`` (empty
+            without one). Not part of ``spec_hash``.
+        against: the spec's ``against``: the non-learning team a one-arm study is compared with, or None.
     """
 
     arms: list[Arm]
@@ -152,6 +167,8 @@ class Sweep:
     base: dict[str, Any] = field(default_factory=dict, repr=False)
     base_path: str | None = None
     smoke_test: bool = False
+    expect: dict[str, str] = field(default_factory=dict)
+    against: str | None = None
 
     @property
     def arm_names(self) -> list[str]:
@@ -410,6 +427,11 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     smoke_test = data.get("smoke_test", False)
     if not isinstance(smoke_test, bool):
         raise ConfigError(f"smoke_test = {_show(smoke_test)} is not allowed: expected true or false")
+    expect = _read_expect(data.get("expect"))
+    against = data.get("against")
+    if against is not None and (not isinstance(against, str) or not against):
+        raise ConfigError(f"against = {_show(against)} is not allowed: expected the name of a non-learning "
+                          "team (e.g. restrained)")
     combine = data.get("combine", "product")
     if combine not in _COMBINE:
         raise ConfigError(f"combine = {_show(combine)} is not allowed: expected one of "
@@ -485,12 +507,41 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
             overrides = {**copy.deepcopy(shared), **copy.deepcopy(arm.overrides), _SEED_KEY: seed}
             runs.append(RunSpec(run_id, arm.name, seed, overrides, cfg))
 
+    if against is not None:
+        if len(arms) > 1:
+            raise ConfigError(f"against = {_show(against)} compares one arm with a non-learning team; this "
+                              f"spec has {len(arms)} arms (compare arms with 'baseline' instead)")
+        from marl_core.baselines import measured_teams
+
+        measured = measured_teams(runs[0].config)
+        if against not in measured:
+            raise ConfigError(f"against = {_show(against)} is not a team these runs measure; expected one of "
+                              f"{', '.join(measured)} (train.baselines)")
+
     digest = _canonical({"arms": [[a.name, a.overrides] for a in arms], "baseline": baseline,
                          "runs": [[r.arm, r.seed, r.run_id] for r in runs]})
     spec_hash = hashlib.sha256(digest.encode("utf-8")).hexdigest()[:12]
     return Sweep(arms=arms, runs=runs, baseline=baseline, seeds=seeds, axes=axes, spec_hash=spec_hash,
                  source=source, combine=combine, shared=shared, base=base, base_path=base_path,
-                 smoke_test=smoke_test)
+                 smoke_test=smoke_test, expect=expect, against=against)
+
+
+def _read_expect(value: Any) -> dict[str, str]:
+    if value is None:
+        return {}
+    if not isinstance(value, dict) or not value:
+        raise ConfigError(f"expect = {_show(value)} is not allowed: expected a mapping of measure -> one of "
+                          f"{', '.join(EXPECT_DIRECTIONS)}")
+    for measure, direction in value.items():
+        if measure not in EXPECT_MEASURES:
+            close = nearest(str(measure), EXPECT_MEASURES)
+            hint = f"did you mean {_did_you_mean(close)}?" if close else "expected one of " + ", ".join(
+                EXPECT_MEASURES)
+            raise ConfigError(f"expect.{measure} is not a measure the report knows; {hint}")
+        if direction not in EXPECT_DIRECTIONS:
+            raise ConfigError(f"expect.{measure} = {_show(direction)} is not allowed: expected one of "
+                              f"{', '.join(EXPECT_DIRECTIONS)}")
+    return dict(value)
 
 
 def load_spec(path: str | os.PathLike) -> Sweep:

@@ -59,7 +59,7 @@ import numpy as np
 from marl_core.errors import ConfigError
 
 __all__ = ["iqm", "t_interval", "iqm_interval", "welch_interval", "mean_band", "stratified_bootstrap_ci",
-           "summarize", "welch_p", "mannwhitney_p", "holm", "probability_of_improvement", "compare",
+           "summarize", "welch_p", "mannwhitney_p", "holm", "probability_of_improvement", "compare", "trend", "paired",
            "min_seeds_warning", "coverage_table", "INTERVAL_METHODS", "COVERAGE_KINDS", "COVERAGE_NS",
            "COVERAGE_TRIALS", "COVERAGE_BOOTSTRAP_TRIALS", "COVERAGE_BOOTSTRAP_REPS", "COVERAGE_SEED",
            "MEASURED_COVERAGE", "TESTS", "ALPHA"]
@@ -535,6 +535,59 @@ def compare(arm: Any, baseline: Any, test: str = "mannwhitney", *, reps: int = 2
         "n_baseline": int(b.size),
         "warning": min_seeds_warning(int(a.size), int(b.size), test),
     }
+
+
+def paired(x: Any, y: Any, confidence: float = 0.95) -> dict[str, Any]:
+    """The paired difference ``x - y`` (one pair per run, e.g. the learned team and a scripted team measured
+    on the same evaluation episodes of the run): its mean, :func:`t_interval` and the two-sided p of the
+    one-sample t-test of the differences against 0 (``scipy.stats.ttest_1samp``; the paired t-test).
+
+    Pairs with a NaN are dropped. With fewer than 2 pairs the interval and p are NaN; with every
+    difference equal, p is 0.0 when that difference is not 0 and NaN when it is.
+    """
+    confidence = _check_confidence(confidence)
+    xs, ys = np.asarray(x, dtype=float).ravel(), np.asarray(y, dtype=float).ravel()
+    if xs.shape != ys.shape:
+        raise ConfigError(f"paired: x and y must pair up; got {xs.size} and {ys.size} values")
+    d = (xs - ys)[np.isfinite(xs) & np.isfinite(ys)]
+    nan = float("nan")
+    if d.size == 0:
+        return {"n": 0, "difference": nan, "difference_ci": (nan, nan), "p_value": nan}
+    out = {"n": int(d.size), "difference": float(d.mean()), "difference_ci": t_interval(d, confidence)}
+    if d.size < 2:
+        return {**out, "p_value": nan}
+    if d.max() == d.min():
+        return {**out, "p_value": nan if d[0] == 0 else 0.0}
+    from scipy import stats as sps
+
+    return {**out, "p_value": float(sps.ttest_1samp(d, 0.0).pvalue)}
+
+
+def trend(x: Any, y: Any) -> dict[str, Any]:
+    """A monotone trend of ``y`` along ``x`` (one pair per run): Spearman's rank correlation.
+
+    Returns ``{"n", "rho", "p_value"}``: ``rho`` is Pearson's correlation of the ranks (ties get their mean
+    rank), ``p_value`` the two-sided p of the t statistic ``rho * sqrt((n - 2) / (1 - rho^2))`` with
+    ``n - 2`` degrees of freedom, which is what ``scipy.stats.spearmanr`` returns. Rank-based, so it
+    asks only whether y tends to rise or fall as x rises, not whether the change is linear (axes such as
+    a scale of 0.25, 0.5, 1, 2, 4 are not evenly spaced). Pairs with a NaN are dropped; with fewer than 3
+    pairs left, or no spread in x or in y, ``rho`` and ``p_value`` are NaN.
+    """
+    xs, ys = np.asarray(x, dtype=float).ravel(), np.asarray(y, dtype=float).ravel()
+    if xs.shape != ys.shape:
+        raise ConfigError(f"trend: x and y must pair up; got {xs.size} and {ys.size} values")
+    keep = np.isfinite(xs) & np.isfinite(ys)
+    xs, ys = xs[keep], ys[keep]
+    n = int(xs.size)
+    nan = float("nan")
+    if n < 3 or np.ptp(xs) == 0 or np.ptp(ys) == 0:
+        return {"n": n, "rho": nan, "p_value": nan}
+    from scipy import stats as sps
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        result = sps.spearmanr(xs, ys)
+    return {"n": n, "rho": float(result.statistic), "p_value": float(result.pvalue)}
 
 
 def min_seeds_warning(n_arm: int, n_base: int, test: str) -> str | None:

@@ -102,6 +102,43 @@ def test_regrowth_follows_the_table(tmp_path):
     assert np.array_equal(res & game.layout.resource, np.broadcast_to(game.layout.resource, res.shape))
 
 
+@pytest.mark.parametrize("scale", [0.5, 2.0])
+def test_regrow_scale_multiplies_the_table_and_clips_at_one(tmp_path, scale):
+    counts = [0, 1, 2, 3] * 3
+    rows, centres = regrowth_layout(counts)
+    copies = 3000
+    game = harvest.vector_env(copies, layout=write_layout(tmp_path, rows), num_agents=1, view_radius=1,
+                              regrow_radius=1, regrow_table=TABLE, regrow_scale=scale)
+    game.reset(seed=321)
+    stay(game)
+    res = game.interior(game.resource)
+    for k in range(4):
+        grown = sum(int(res[:, y, x].sum()) for y, x, kk in centres if kk == k)
+        # harvest_v0 docstring (regrow_scale): min(1, scale * regrow_table[n]); with scale 2 the table
+        # [0, 0.3, 0.6, 0.9] becomes [0, 0.6, 1, 1] (the last two clipped), with 0.5 [0, 0.15, 0.3, 0.45]
+        expected = min(1.0, scale * TABLE[k])
+        if expected in (0.0, 1.0):
+            assert grown == (copies * counts.count(k) if expected else 0)
+        else:
+            assert_rate(grown, copies * counts.count(k), expected)
+
+
+def test_regrow_scale_only_multiplies_the_table():
+    # a scaled table plays bit for bit like the product table at scale 1 (harvest_v0 docstring): the knob
+    # changes the probabilities, not the random draws
+    table = [0.0, 0.1, 0.2, 0.25]
+    a = harvest.vector_env(4, num_agents=3, regrow_table=table, regrow_scale=3.0)
+    b = harvest.vector_env(4, num_agents=3, regrow_table=[3.0 * p for p in table])
+    rng = np.random.default_rng(0)
+    oa, _ = a.reset(seed=5)
+    ob, _ = b.reset(seed=5)
+    for _ in range(80):
+        act = rng.integers(0, 5, size=(4, 3))
+        oa, ra, *_ = a.step(act)
+        ob, rb, *_ = b.step(act)
+        assert np.array_equal(oa, ob) and np.array_equal(ra, rb)
+
+
 @pytest.mark.parametrize(("radius", "offset", "counted"), [
     (2, (1, 0), True),    # distance 1
     (2, (1, 1), True),    # distance sqrt 2

@@ -222,7 +222,9 @@ def test_quick_sweep_end_to_end_local(local_sweep, capsys):
     assert {r["run_id"] for r in csv_rows} == set(rows)
     assert {r["state"] for r in csv_rows} == {"done"}
     assert {r["env_steps"] for r in csv_rows} == {"5000"}
-    expected = [f"curve_{m}.png" for m in FIVE_METRICS] + [f"bars_{m}.png" for m in FIVE_METRICS]
+    # the metrics and harvest's behaviour measures (report.py: waste_removed is cleanup's only)
+    measures = [*FIVE_METRICS, "resources_taken", "tags_fired", "times_tagged"]
+    expected = [f"curve_{m}.png" for m in measures] + [f"bars_{m}.png" for m in measures]
     found = sorted(p.name for p in (report / "figures").glob("*.png"))
     # report.py _axes: a bool override (share_parameters) is not numeric, so there is no axis_ figure
     assert found == sorted(expected)

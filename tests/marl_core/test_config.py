@@ -380,9 +380,13 @@ def test_set_of_a_known_game_parameter_still_works():
 
 
 def test_keys_added_later_leave_the_hash_of_earlier_configs_alone():
-    # digests of parse_config({}) computed at commit e89254e, before reward, pack_replay, replay_ratio and
-    # conv_strides existed: run ids in sweep ledgers and the checkpoints of earlier runs stay valid
+    # digests of parse_config({}) computed at commit e89254e, before reward, pack_replay, replay_ratio,
+    # conv_strides, actor_every and harvest's regrow_scale existed: run ids in sweep ledgers and the
+    # checkpoints of earlier runs stay valid
     assert config_hash(parse_config({})) == "96fcbd9ac649"
     assert config_hash(parse_config({"learner": {"kind": "maddpg"}})) == "703d3519856c"
-    for changed in (["learner.pack_replay=false"], ["learner.replay_ratio=2"], ["learner.conv_strides=[2,2]"]):
+    for changed in (["learner.pack_replay=false"], ["learner.replay_ratio=2"], ["learner.conv_strides=[2,2]"],
+                    ["env.params.regrow_scale=2"]):
         assert config_hash(parse_config({}, changed)) != "96fcbd9ac649", changed
+    maddpg = config_hash(parse_config({"learner": {"kind": "maddpg"}}, ["learner.actor_every=2"]))
+    assert maddpg != "703d3519856c"

@@ -510,17 +510,30 @@ def test_sigint_to_a_real_train_process(tmp_path):
     data["train"]["total_steps"] = 1_000_000  # far more than the test waits for
     cfg = _write_yaml(tmp_path / "long.yaml", data)
     run = tmp_path / "run"
-    proc = subprocess.Popen(_cli_command("train", str(cfg), "--out", str(run)), stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True)
+    # files, not pipes: the test waits for the process to exit, not for every holder of a pipe to close it
+    out_path, err_path = tmp_path / "stdout.txt", tmp_path / "stderr.txt"
+    with open(out_path, "w") as out, open(err_path, "w") as err:
+        proc = subprocess.Popen(_cli_command("train", str(cfg), "--out", str(run)), stdout=out, stderr=err,
+                                text=True)
     try:
-        first = proc.stdout.readline()  # piped: one line per evaluation (cli.py docstring)
-        assert first.startswith("step 200/1000000"), first + proc.stderr.read()
+        deadline = time.monotonic() + 180
+        while not out_path.read_text().endswith("\n") and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.05)
+        first = out_path.read_text().splitlines()[:1]  # one line per evaluation (cli.py docstring)
+        assert first and first[0].startswith("step 200/1000000"), f"{first} {err_path.read_text()}"
         proc.send_signal(signal.SIGINT)
-        stdout, stderr = proc.communicate(timeout=60)
+        try:
+            proc.wait(timeout=60)
+        except subprocess.TimeoutExpired:  # say where the child stands (state, blocked or ignored signals)
+            status = Path(f"/proc/{proc.pid}/status")
+            lines = status.read_text().splitlines() if status.exists() else []
+            raise AssertionError(f"no exit 60 s after SIGINT; child "
+                                 f"{[ln for ln in lines if ln.startswith(('State', 'Sig'))]}") from None
     finally:
         if proc.poll() is None:
             proc.kill()
             proc.wait()
+    stderr = err_path.read_text()
     assert proc.returncode == 130, stderr  # cli.py docstring
     lines = stderr.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in stderr, stderr

@@ -371,6 +371,36 @@ def test_the_actor_step_leaves_the_critic_alone(critic):
     assert_differs(learner.critic, learner.critic_opt, leaked, leak_opt, "critic stepped on the actor loss")
 
 
+def _same_params(a, b) -> bool:
+    return all(torch.equal(p, q) for p, q in zip(a.parameters(), b.parameters(), strict=True))
+
+
+def test_actor_every_k_skips_the_actor_step_between_actor_updates():
+    # learner.actor_every = 3 (config.py): update 1 is a full MADDPG update, updates 2 and 3 are the critic
+    # step alone (with its Polyak move of the target critic), update 4 is full again. Checked against a
+    # learner with actor_every 1: its first update is the same full update, and a critic-only update is
+    # that learner's critic step with its actors left as they were (common practice, no source).
+    every = build_maddpg()
+    every.cfg = every.cfg.model_copy(update={"actor_every": 3})
+    plain = build_maddpg()
+    b1, b2 = make_batch(seed=11), make_batch(seed=12)
+    s_every, s_plain = every.update(b1), plain.update(b1)
+    assert set(s_every) == set(s_plain) == {"critic_loss", "actor_loss", "q_mean"}
+    for name in ("actors", "critic", "target_actors", "target_critic"):
+        assert _same_params(getattr(every, name), getattr(plain, name)), name  # update 1 is a full one
+
+    actors, target_actors = copy.deepcopy(every.actors), copy.deepcopy(every.target_actors)
+    critic_only = every.update(b2)
+    assert set(critic_only) == {"critic_loss", "q_mean"}  # no actor step: no actor loss to report
+    assert _same_params(every.actors, actors) and _same_params(every.target_actors, target_actors)
+    plain.update(b2)  # its critic step is the same (same critic, same target nets); its actors move on
+    assert _same_params(every.critic, plain.critic) and _same_params(every.target_critic, plain.target_critic)
+    assert not _same_params(plain.actors, actors)
+    every.update(b2)
+    assert _same_params(every.actors, actors)  # update 3: still critic only
+    assert "actor_loss" in every.update(b2) and not _same_params(every.actors, actors)  # update 4: 1 + 3
+
+
 # ---------------------------------------------------------------------------------------------- IDQN
 def _huber(x: torch.Tensor) -> torch.Tensor:
     # Mnih et al. 2015 Huber loss (delta 1): x^2/2 for |x| <= 1, |x| - 1/2 beyond, written out here

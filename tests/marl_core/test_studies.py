@@ -1,0 +1,74 @@
+"""The bundled studies (configs/studies/): each runs end to end on a tiny version of itself and its report
+writes the finding lines.
+
+A tiny version keeps the study's arms, axes, ``expect`` and ``against`` and shrinks everything else (2 seeds,
+the tiny maps, a few hundred env steps, small networks), so it shows that the machinery runs, not what the
+study finds: the full studies' measured results are in the README, "Studies".
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+import yaml
+
+from marl_core.ablation.spec import load_spec
+from marl_core.cli import main
+
+STUDIES = Path(__file__).resolve().parents[2] / "configs" / "studies"
+NAMES = sorted(p.stem for p in STUDIES.glob("*.yaml"))
+TINY = {"env.num_envs": 2, "env.params.num_agents": 2, "env.params.view_radius": 2, "env.params.max_cycles": 50,
+        "learner.hidden": 16, "learner.conv_channels": [4, 8], "learner.batch_size": 16,
+        "learner.replay_size": 1000, "learner.warmup_steps": 100, "train.total_steps": 200,
+        "train.eval_every": 200, "train.eval_episodes": 2, "train.checkpoint_every": 200,
+        "log.tensorboard": False, "log.gif_every": 0, "log.progress": False}
+
+
+def test_the_bundled_studies_are_the_five_of_the_readme():
+    assert NAMES == ["cleanup_cures", "learners_cleanup", "learners_harvest", "long_commons", "scarcity_harvest"]
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_a_study_header_states_finding_source_expectation_and_duration(name):
+    head = [ln for ln in (STUDIES / f"{name}.yaml").read_text().splitlines() if ln.startswith("#")]
+    text = " ".join(head)
+    for word in ("Revisits:", "docs/sources.md", "Expected:", "Duration:", "Run: marl-core ablate"):
+        assert word in text, f"{name}: the header has no {word!r}"
+    sweep = load_spec(STUDIES / f"{name}.yaml")
+    assert sweep.seeds == [0, 1, 2, 3, 4]  # at least 5 seeds per arm (issue: studies)
+
+
+def _tiny_spec(name: str, tmp: Path) -> Path:
+    data = yaml.safe_load((STUDIES / f"{name}.yaml").read_text())
+    data["base"] = str((STUDIES / data["base"]).resolve())
+    layout = "cleanup_tiny" if "cleanup" in data["base"] else "harvest_tiny"
+    data["seeds"] = [0, 1]
+    data["set"] = {**data.get("set", {}), **TINY, "env.params.layout": layout}
+    data["smoke_test"] = True
+    path = tmp / f"{name}.yaml"
+    path.write_text(yaml.safe_dump(data, sort_keys=False))
+    return path
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_a_tiny_version_runs_and_reports_its_findings(name, tmp_path, capsys):
+    spec = _tiny_spec(name, tmp_path)
+    out = tmp_path / "sweep"
+    assert main(["ablate", str(spec), "--out", str(out), "--workers", "1", "--quiet"]) == 0
+    capsys.readouterr()
+    assert main(["report", str(out)]) == 0
+    printed = capsys.readouterr().out.splitlines()
+    found = json.loads((out / "report" / "findings.json").read_text())
+    sweep = load_spec(spec)
+    assert found["findings"], "no finding line"
+    assert found["expect"] == sweep.expect
+    measures = {f["measure"] for f in found["findings"]}
+    assert {"efficiency", "equality", "sustainability", "peace"} <= measures
+    for measure in sweep.expect:  # each expected measure has its line, printed by the command too
+        line = next(f for f in found["findings"] if f["measure"] == measure)
+        assert line["expected"] == sweep.expect[measure] and "Expected:" in line["sentence"]
+        assert any(p == line["sentence"] for p in printed)
+    text = (out / "report" / "report.md").read_text()
+    assert "## Findings" in text and "Smoke test" in text
