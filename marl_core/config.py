@@ -31,7 +31,7 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
       grad_clip: 10.0
       hidden: 128
       conv_channels: [16, 32]
-      conv_strides: null
+      conv_strides: [2, 2]      # idqn, left out: 2 per layer; null: 1 then 2 (the first release's, maddpg's)
       torch_threads: 1
       double: true
       dueling: false
@@ -112,8 +112,8 @@ from marl_core.errors import ConfigError
 from marl_core.files import atomic_write
 
 __all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "TrainConfig", "LogConfig",
-           "RewardConfig", "InequityAversion", "load_config", "parse_config", "apply_overrides", "config_to_dict", "dump_config",
-           "schema_table", "valid_keys", "config_hash"]
+           "RewardConfig", "InequityAversion", "load_config", "load_stored_config", "parse_config",
+           "apply_overrides", "config_to_dict", "dump_config", "schema_table", "valid_keys", "config_hash"]
 
 
 # ---------------------------------------------------------------------------------------------- types
@@ -302,6 +302,11 @@ def _end_not_above_start(cfg: BaseModel, schedule: str) -> None:
                                       f"a number <= learner.{schedule}_start ({start!r})"))
 
 
+# the stride of every conv layer when learner.conv_strides is left out, per learner kind (None: the first
+# release's 1 then 2), chosen by learning curves (scripts/compare_encoders.py; README, "Training")
+DEFAULT_STRIDE: dict[str, int | None] = {"idqn": 2, "maddpg": None}
+
+
 class _LearnerBase(BaseModel):
     """Keys every learner has. The three without a default here get one per kind."""
 
@@ -344,12 +349,26 @@ class _LearnerBase(BaseModel):
                                              "grid-window encoder")
     conv_strides: list[_PositiveInt] | None = Field(None, min_length=1, description="stride of each conv "
                                                     "layer of the grid-window encoder, one per entry of "
-                                                    "conv_channels (null: 1 for the first layer, 2 for the "
-                                                    "others)")
+                                                    "conv_channels; left out: idqn 2 for every layer, maddpg "
+                                                    "as null (chosen by scripts/compare_encoders.py); null: 1 "
+                                                    "for the first layer, 2 for the others (the first "
+                                                    "release's encoder)")
     torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process; one leaves a "
                                        "core to each other sweep worker. Measured on an idle 2-core machine "
                                        "(scripts/bench_train.py --torch-threads): two threads run one job "
                                        "1.4x (idqn) to 1.7x (maddpg) faster, at lower work per CPU second")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_strides(cls, data: Any) -> Any:
+        """``conv_strides`` left out: :data:`DEFAULT_STRIDE` of the kind for each conv layer (idqn: 2;
+        maddpg: null, the first release's 1 then 2)."""
+        stride = DEFAULT_STRIDE.get(cls.model_fields["kind"].default)
+        if isinstance(data, dict) and "conv_strides" not in data and stride is not None:
+            channels = data.get("conv_channels", [16, 32])
+            if isinstance(channels, list) and channels:
+                data = {**data, "conv_strides": [stride] * len(channels)}
+        return data
 
     @model_validator(mode="after")
     def _one_stride_per_conv_layer(self) -> _LearnerBase:
@@ -664,6 +683,9 @@ def _default(model: type[BaseModel], name: str) -> Any:
     info = model.model_fields[name]
     if info.is_required():
         return None  # e.g. reward.inequity_aversion.alpha: required once the mapping is given
+    stride = DEFAULT_STRIDE.get(model.model_fields["kind"].default) if "kind" in model.model_fields else None
+    if issubclass(model, _LearnerBase) and name == "conv_strides" and stride is not None:  # filled when left out
+        return [stride] * len(_default(model, "conv_channels"))
     return info.default_factory() if info.default_factory is not None else info.default
 
 
@@ -956,6 +978,22 @@ def read_yaml_mapping(path: str | os.PathLike, what: str,
     if data is not None and not isinstance(data, dict):
         raise ConfigError(f"{what} '{path}': the top level must be {expect}; got {_show(data)}")
     return data, path
+
+
+def load_stored_config(path: str | os.PathLike) -> RunConfig:
+    """The resolved config a run directory stored (``config.yaml``). A learner key added after that run
+    was written is absent from its file and takes the value that behaves as the run did
+    (``_ADDED_LEARNER_KEYS``), not today's default: an old run resumes with the networks it was built with.
+    """
+    data, _ = read_yaml_mapping(path, "config file", f"a mapping of sections ({', '.join(SECTIONS)})")
+    data = copy.deepcopy(data or {})
+    learner = data.get("learner")
+    if isinstance(learner, dict):
+        kind = LEARNERS.get(learner.get("kind", "idqn"))
+        for key, neutral in _ADDED_LEARNER_KEYS.items():
+            if kind is not None and key in kind.model_fields and key not in learner:
+                learner[key] = neutral
+    return parse_config(data)
 
 
 def load_config(path: str | os.PathLike, overrides: Sequence[str] = ()) -> RunConfig:

@@ -62,7 +62,7 @@ import torch
 from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
 from marl_core.baselines import measured_teams
-from marl_core.config import RunConfig, config_hash, dump_config, load_config
+from marl_core.config import RunConfig, config_hash, dump_config, load_stored_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
 from marl_core.hints import command
@@ -437,7 +437,7 @@ def load_run(out: str | Path) -> RunConfig:
     out = Path(out)
     if not (out / "config.yaml").is_file():
         raise RunDirError(f"'{out}' is not a run directory (no config.yaml)")
-    return load_config(out / "config.yaml")
+    return load_stored_config(out / "config.yaml")
 
 
 def finished_summary(out: str | Path) -> dict[str, Any] | None:

@@ -604,8 +604,8 @@ def _axis_findings(key: str, axis: dict[str, Any], measures: list[str], arms: li
         sentence = (f"{m} {says} as {key} rises: {mean[lo_arm]} at {key} = {_short(axis['values'][lo_arm])} "
                     f"and {mean[hi_arm]} at {_short(axis['values'][hi_arm])} (difference "
                     f"{_with_ci(c['difference'], c['difference_ci'])}, {CONFIDENCE:.0%} Welch t); Spearman "
-                    f"rho = {_num(rho, 2)} over {t['n']} runs, p (Holm over {len(tested)} measures) = "
-                    f"{_pval(p_holm)}.{_verdict_clause(expected, verdict)}")
+                    f"rho = {_num(rho, 2)} over {t['n']} runs, p (Holm over {len(tested)} measures) "
+                    f"{_p_is(p_holm)}.{_verdict_clause(expected, verdict)}")
         out.append({"measure": m, "along": key, "arm": hi_arm, "against": lo_arm, "rho": rho, "n": t["n"],
                     "p_value": t["p_value"], "p_holm": p_holm, "difference": c["difference"],
                     "difference_ci": c["difference_ci"], "observed": observed, "expected": expected,
@@ -636,7 +636,7 @@ def _team_findings(measures: list[str], arm: str, team: str, done: list[dict], a
                     f"{_num(arm_info['metrics'][m]['mean'])} "
                     f"against {_num(arm_info['metrics'][m]['teams'].get(team, math.nan))}, paired difference "
                     f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} t over {c['n']} runs), "
-                    f"p (paired t, Holm over {len(tested)} measures) = {_pval(p_holm)}."
+                    f"p (paired t, Holm over {len(tested)} measures) {_p_is(p_holm)}."
                     f"{_verdict_clause(expected, verdict)}")
         out.append({"measure": m, "along": None, "arm": arm, "against": team, "p_holm": p_holm,
                     "difference": c["difference"], "difference_ci": c["difference_ci"], "observed": observed,
@@ -657,7 +657,7 @@ def _baseline_findings(measures: list[str], baseline: str, comparisons: dict[str
             says = "cannot be tested (too few runs)" if observed is None else _SAYS[observed]
             sentence = (f"{m} {says} in `{a}` against the baseline `{baseline}`: difference "
                         f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} Welch t), "
-                        f"p ({_TEST_NAMES[test]}, Holm) = {_pval(c.get('p_holm', math.nan))}."
+                        f"p ({_TEST_NAMES[test]}, Holm) {_p_is(c.get('p_holm', math.nan))}."
                         f"{_verdict_clause(expected, verdict)}")
             out.append({"measure": m, "along": None, "arm": a, "against": baseline, "p_holm": c.get("p_holm"),
                         "difference": c["difference"], "difference_ci": c["difference_ci"],
@@ -751,6 +751,12 @@ def _pval(p: Any) -> str:
     if math.isnan(p):
         return "n/a"
     return "< 0.001" if p < 0.001 else f"{p:.3g}"
+
+
+def _p_is(p: Any) -> str:
+    """``= 0.03``, ``< 0.001`` or ``= n/a``: a p-value after its label in a sentence."""
+    text = _pval(p)
+    return text if text.startswith("<") else f"= {text}"
 
 
 def _md(text: Any) -> str:

@@ -20,6 +20,7 @@ from marl_core.config import (
     config_to_dict,
     dump_config,
     load_config,
+    load_stored_config,
     parse_config,
     schema_table,
     valid_keys,
@@ -382,11 +383,31 @@ def test_set_of_a_known_game_parameter_still_works():
 def test_keys_added_later_leave_the_hash_of_earlier_configs_alone():
     # digests of parse_config({}) computed at commit e89254e, before reward, pack_replay, replay_ratio,
     # conv_strides, actor_every and harvest's regrow_scale existed: run ids in sweep ledgers and the
-    # checkpoints of earlier runs stay valid
-    assert config_hash(parse_config({})) == "96fcbd9ac649"
-    assert config_hash(parse_config({"learner": {"kind": "maddpg"}})) == "703d3519856c"
+    # checkpoints of earlier runs stay valid. The default encoder has changed since (stride 2 per layer), so
+    # the first release's encoder is conv_strides: null, which a run directory of that time gets back
+    # (load_stored_config fills the keys its file lacks with the values that behave as before)
+    old = {"learner": {"conv_strides": None}}
+    assert config_hash(parse_config(old)) == "96fcbd9ac649"
+    assert config_hash(parse_config({"learner": {"kind": "maddpg", "conv_strides": None}})) == "703d3519856c"
     for changed in (["learner.pack_replay=false"], ["learner.replay_ratio=2"], ["learner.conv_strides=[2,2]"],
                     ["env.params.regrow_scale=2"]):
-        assert config_hash(parse_config({}, changed)) != "96fcbd9ac649", changed
-    maddpg = config_hash(parse_config({"learner": {"kind": "maddpg"}}, ["learner.actor_every=2"]))
+        assert config_hash(parse_config(old, changed)) != "96fcbd9ac649", changed
+    assert config_hash(parse_config({})) != "96fcbd9ac649"  # today's idqn default encoder is another network
+    assert config_hash(parse_config({"learner": {"kind": "maddpg"}})) == "703d3519856c"  # maddpg's is not
+    maddpg = config_hash(parse_config({"learner": {"kind": "maddpg", "conv_strides": None}},
+                                      ["learner.actor_every=2"]))
     assert maddpg != "703d3519856c"
+
+
+def test_a_stored_config_without_the_later_keys_resumes_as_it_ran(tmp_path):
+    # a run directory written before conv_strides existed: its file has no such key, and the run was built
+    # with the first release's encoder (1 then 2), not today's default
+    data = config_to_dict(parse_config({"learner": {"conv_strides": None}}))
+    for key in ("conv_strides", "pack_replay", "replay_ratio"):
+        del data["learner"][key]
+    del data["env"]["params"]["regrow_scale"]
+    path = tmp_path / "config.yaml"
+    path.write_text(yaml.safe_dump(data))
+    cfg = load_stored_config(path)
+    assert cfg.learner.conv_strides is None and config_hash(cfg) == "96fcbd9ac649"
+    assert load_config(path).learner.conv_strides == [2, 2]  # a config file for a new run: today's default

@@ -31,4 +31,8 @@ def test_one_stride_per_conv_layer():
     with pytest.raises(ConfigError, match=r"^learner\.conv_strides = \[2\] is not allowed: expected one "
                                           r"stride per conv layer: 2"):
         parse_config({"learner": {"conv_strides": [2]}})
-    assert parse_config({"learner": {"conv_channels": [8, 8, 16]}}).learner.conv_strides is None
+    # left out: 2 for every layer (config.py DEFAULT_STRIDE); null: the first release's 1 then 2
+    assert parse_config({"learner": {"conv_channels": [8, 8, 16]}}).learner.conv_strides == [2, 2, 2]
+    first_release = {"learner": {"conv_channels": [8, 8, 16], "conv_strides": None}}
+    assert parse_config(first_release).learner.conv_strides is None
+    assert parse_config({"learner": {"kind": "maddpg"}}).learner.conv_strides is None  # maddpg's default

@@ -382,11 +382,18 @@ def test_evaluate_json_has_the_summary_metric_keys(finished_run, capsys):
     assert _snapshot(finished_run) == before  # evaluating reads the run; common practice (no source)
 
 
-def test_evaluate_gif_writes_an_animated_gif(finished_run, tmp_path, capsys):
+def test_evaluate_gif_writes_an_animated_gif(tmp_path, capsys):
     from PIL import Image
 
+    # a short run of its own that evaluates with random actions (eval_eps 1): a greedy policy that stands
+    # still draws the same frame each step, which Pillow merges into one
+    data = _tiny()
+    data["learner"]["eval_eps"] = 1.0
+    data["train"]["total_steps"] = 200
+    run = tmp_path / "run"
+    train.run(parse_config(data), run)
     gif = tmp_path / "episode.gif"
-    assert main(["evaluate", str(finished_run), "--episodes", "1", "--gif", str(gif)]) == 0
+    assert main(["evaluate", str(run), "--episodes", "1", "--gif", str(gif)]) == 0
     assert f"GIF: {gif}" in capsys.readouterr().out  # marl_core/cli.py _evaluate() output
     with Image.open(gif) as im:
         # one episode of max_cycles 50: reset frame + one per step (rollout.evaluate) is at most 51;
