@@ -410,7 +410,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
             team_means = {t: _finite_mean([r["baselines"].get(t, {}).get(m, math.nan) for r in done[a]])
                           for t in teams}
             team_means = {t: v for t, v in team_means.items() if math.isfinite(v)}
-            best = max(team_means, key=team_means.__getitem__) if team_means else None
+            best = (max(team_means, key=team_means.__getitem__) if team_means and m in HIGHER_IS_BETTER
+                    else None)  # a behaviour measure has no better direction: no strongest team
             entry = {**s, "nan_dropped": int(np.isnan(x).sum()),
                      "random_mean": _finite_mean([r["random"].get(m, math.nan) for r in done[a]]),
                      "teams": team_means, "best_team": best,
