@@ -520,8 +520,10 @@ def test_sigint_to_a_real_train_process(tmp_path):
     # files, not pipes: the test waits for the process to exit, not for every holder of a pipe to close it
     out_path, err_path = tmp_path / "stdout.txt", tmp_path / "stderr.txt"
     with open(out_path, "w") as out, open(err_path, "w") as err:
+        # SIGINT back to its default in the child: a test process started in the background by a
+        # non-interactive shell ignores SIGINT, children inherit that, and Python keeps it ignored
         proc = subprocess.Popen(_cli_command("train", str(cfg), "--out", str(run)), stdout=out, stderr=err,
-                                text=True)
+                                text=True, preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     try:
         deadline = time.monotonic() + 180
         while not out_path.read_text().endswith("\n") and proc.poll() is None and time.monotonic() < deadline:
