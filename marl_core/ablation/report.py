@@ -417,7 +417,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                      "teams": team_means, "best_team": best,
                      "best_team_mean": team_means[best] if best is not None else math.nan,
                      "beats_best_team": None}
-            if best is not None and math.isfinite(s["mean"]) and m in HIGHER_IS_BETTER:
+            if best is not None and math.isfinite(s["mean"]):  # best is None for a behaviour measure
                 entry["beats_best_team"] = bool(s["mean_ci"][0] > entry["best_team_mean"])  # NaN: False
                 if not entry["beats_best_team"]:
                     not_better.append(_not_better(a, m, entry))
