@@ -1,0 +1,165 @@
+"""Opponent shaping (LOLA) and naive learners on two-player iterated matrix games, exact gradients.
+
+Foerster et al. 2018, "Learning with Opponent-Learning Awareness" (docs/sources.md, "LOLA"). Each of two
+players holds a memory-one policy over two actions: five logits, one for the first round and one for each
+previous joint action. ``sigmoid(theta[k])`` is the probability of action 0 (cooperate, heads, ...):
+
+    k = 0                     the first round (no previous joint action)
+    k = 1 + 2 * a0 + a1       after the joint action (agent_0 played a0, agent_1 played a1)
+
+The states are indexed the same way for both players (agent_0's action first), as ``matrix_v0``'s
+observation lists them: entry ``i * 2 + a`` of its one-hot vector is 1 when agent i played a.
+
+The discounted value of the infinitely repeated game has a closed form. With ``p0`` the distribution of the
+first joint action, ``P`` the 4 x 4 transition matrix between joint actions and ``r_i`` player i's payoff
+per joint action, ``V_i = p0^T (I - gamma P)^{-1} r_i``: the sum over rounds t >= 0 of ``gamma^t`` times
+the expected payoff of round t (Foerster et al. 2018, Section 4.2, from memory). It is differentiated with
+torch autograd.
+
+Updates, both players at once from the same parameters (from memory of the paper's Section 3):
+
+    naive learner (NL)  theta_1 += delta * grad_1 V_1
+    LOLA                theta_1 += delta * grad_1 V_1
+                                   + delta * eta * (grad_2 V_1)^T (grad_1 grad_2 V_2)
+
+``grad_2 V_1`` is held fixed in the second-order term: it is the first-order Taylor expansion of
+``V_1(theta_1, theta_2 + eta * grad_2 V_2)`` with only the opponent's step differentiated through. The
+mirror image holds for player 2.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import torch
+
+__all__ = ["NUM_STATES", "values", "values_from_probs", "exact_step", "train_exact", "ExactResult",
+           "joint_payoffs", "state_index", "first_round_visit"]
+
+NUM_STATES = 5  # first round + four previous joint actions
+
+
+def joint_payoffs(table: np.ndarray) -> torch.Tensor:
+    """``(2, 2, 2)`` table ``[a0, a1, player]`` (``matrix_v0``'s ``payoff_table``) -> ``(4, 2)`` float64,
+    row ``2 * a0 + a1``."""
+    table = np.asarray(table, dtype=np.float64)
+    if table.shape != (2, 2, 2):
+        raise ValueError(f"payoff table has shape {table.shape}; exact LOLA needs two players with two "
+                         f"actions each, shape (2, 2, 2)")
+    return torch.as_tensor(table.reshape(4, 2))
+
+
+def values_from_probs(p0: torch.Tensor, p1: torch.Tensor, payoffs: torch.Tensor,
+                      gamma: float) -> torch.Tensor:
+    """The two players' discounted values ``(2,)`` for memory-one policies given as probabilities.
+
+    Args:
+        p0, p1: ``(5,)`` probability of action 0 for each player: first round, then after joint actions
+            (0,0), (0,1), (1,0), (1,1) (agent_0's action first).
+        payoffs: ``(4, 2)`` payoff of each player per joint action (:func:`joint_payoffs`).
+        gamma: discount in [0, 1).
+    """
+    def joint(q0: torch.Tensor, q1: torch.Tensor) -> torch.Tensor:
+        # (..., 4): probability of each joint action (a0, a1) when the players act 0 with q0 and q1
+        a = torch.stack([q0, 1 - q0], dim=-1)
+        b = torch.stack([q1, 1 - q1], dim=-1)
+        return (a.unsqueeze(-1) * b.unsqueeze(-2)).flatten(-2)
+
+    start = joint(p0[0], p1[0])                    # (4,)
+    trans = joint(p0[1:], p1[1:])                  # (4, 4): row = previous joint action
+    eye = torch.eye(4, dtype=trans.dtype)
+    # p0^T (I - gamma P)^{-1} = x^T with (I - gamma P)^T x = p0
+    visits = torch.linalg.solve((eye - gamma * trans).T, start)
+    return visits @ payoffs.to(visits.dtype)
+
+
+def values(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor, gamma: float) -> torch.Tensor:
+    """:func:`values_from_probs` for logits: ``sigmoid(theta)`` is the probability of action 0."""
+    return values_from_probs(torch.sigmoid(theta0), torch.sigmoid(theta1), payoffs, gamma)
+
+
+def exact_step(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor, gamma: float,
+               lr: float, lookahead: float, shaping: tuple[bool, bool]) -> tuple[torch.Tensor, torch.Tensor]:
+    """One simultaneous update of both players (module docstring); ``shaping[i]`` makes player i LOLA
+    (else naive). Returns the new ``(theta0, theta1)``, detached."""
+    t0 = theta0.detach().clone().requires_grad_(True)
+    t1 = theta1.detach().clone().requires_grad_(True)
+    v = values(t0, t1, payoffs, gamma)
+    # grads[i][j] = d V_i / d theta_j, kept differentiable for the second-order terms
+    grads = [torch.autograd.grad(v[i], (t0, t1), create_graph=True) for i in range(2)]
+    thetas = (t0, t1)
+    new = []
+    for i in range(2):
+        j = 1 - i
+        step = grads[i][i].detach()
+        if shaping[i]:
+            # (grad_j V_i)^T (grad_i grad_j V_j): the gradient w.r.t. theta_i of grad_j V_j . c,
+            # with c = grad_j V_i held fixed
+            inner = (grads[j][j] * grads[i][j].detach()).sum()
+            step = step + lookahead * torch.autograd.grad(inner, thetas[i], retain_graph=True)[0]
+        new.append((thetas[i] + lr * step).detach())
+    return new[0], new[1]
+
+
+def state_index(obs: np.ndarray) -> np.ndarray:
+    """``matrix_v0`` observations ``(..., 4)`` (the previous joint action, one-hot per agent) -> the
+    policy's state index ``(...,)``: 0 in the first round (all zeros), else ``1 + 2 * a0 + a1``."""
+    obs = np.asarray(obs)
+    first = obs.sum(axis=-1) == 0
+    a0 = obs[..., 1].astype(np.int64)
+    a1 = obs[..., 3].astype(np.int64)
+    return np.where(first, 0, 1 + 2 * a0 + a1)
+
+
+def first_round_visit(p0: torch.Tensor, p1: torch.Tensor) -> torch.Tensor:
+    """``(4,)`` probability of each joint action in the first round."""
+    a = torch.stack([p0[0], 1 - p0[0]])
+    b = torch.stack([p1[0], 1 - p1[0]])
+    return torch.outer(a, b).flatten()
+
+
+@dataclass
+class ExactResult:
+    """What :func:`train_exact` returns.
+
+    Attributes:
+        theta: ``(2, 5)`` final logits.
+        probs: ``(2, 5)`` final probabilities of action 0.
+        values: ``(2,)`` final discounted values.
+        reward_per_round: ``(2,)`` ``(1 - gamma) * values``: the discount-weighted mean payoff per round.
+        history: ``(updates + 1, 2)`` reward per round of each player before each update and at the end.
+    """
+
+    theta: np.ndarray
+    probs: np.ndarray
+    values: np.ndarray
+    reward_per_round: np.ndarray
+    history: np.ndarray
+
+
+def train_exact(table: np.ndarray, shaping: tuple[bool, bool], updates: int, seed: int, gamma: float = 0.96,
+                lr: float = 1.0, lookahead: float = 1.0, init_std: float = 1.0) -> ExactResult:
+    """Train two memory-one players with exact gradients.
+
+    Args:
+        table: ``(2, 2, 2)`` payoff table (``matrix_v0``'s ``payoff_table``).
+        shaping: per player, True for LOLA, False for a naive learner.
+        updates: simultaneous updates.
+        seed: seeds the initial logits, drawn from N(0, init_std^2).
+    """
+    payoffs = joint_payoffs(table)
+    gen = torch.Generator().manual_seed(seed)
+    theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * init_std
+    t0, t1 = theta[0], theta[1]
+    history = []
+    for _ in range(updates):
+        with torch.no_grad():
+            history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
+        t0, t1 = exact_step(t0, t1, payoffs, gamma, lr, lookahead, shaping)
+    with torch.no_grad():
+        v = values(t0, t1, payoffs, gamma)
+    history.append(((1 - gamma) * v).numpy())
+    theta = torch.stack([t0, t1])
+    return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
+                       reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
