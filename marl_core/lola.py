@@ -34,8 +34,8 @@ from dataclasses import dataclass
 import numpy as np
 import torch
 
-__all__ = ["NUM_STATES", "values", "values_from_probs", "exact_step", "train_exact", "ExactResult",
-           "joint_payoffs", "state_index", "first_round_visit"]
+__all__ = ["NUM_STATES", "values", "values_from_probs", "shaped_step", "exact_step", "dice_values", "play",
+           "train_exact", "ExactResult", "joint_payoffs", "state_index"]
 
 NUM_STATES = 5  # first round + four previous joint actions
 
@@ -79,13 +79,15 @@ def values(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor, ga
     return values_from_probs(torch.sigmoid(theta0), torch.sigmoid(theta1), payoffs, gamma)
 
 
-def exact_step(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor, gamma: float,
-               lr: float, lookahead: float, shaping: tuple[bool, bool]) -> tuple[torch.Tensor, torch.Tensor]:
+def shaped_step(value_fn, theta0: torch.Tensor, theta1: torch.Tensor, lr: float, lookahead: float,
+                shaping: tuple[bool, bool]) -> tuple[torch.Tensor, torch.Tensor]:
     """One simultaneous update of both players (module docstring); ``shaping[i]`` makes player i LOLA
-    (else naive). Returns the new ``(theta0, theta1)``, detached."""
+    (else naive). ``value_fn(theta0, theta1) -> (2,)`` is the closed form (:func:`values`) or a Monte-Carlo
+    surrogate whose derivatives estimate it (:func:`dice_values`). Returns the new ``(theta0, theta1)``,
+    detached."""
     t0 = theta0.detach().clone().requires_grad_(True)
     t1 = theta1.detach().clone().requires_grad_(True)
-    v = values(t0, t1, payoffs, gamma)
+    v = value_fn(t0, t1)
     # grads[i][j] = d V_i / d theta_j, kept differentiable for the second-order terms
     grads = [torch.autograd.grad(v[i], (t0, t1), create_graph=True) for i in range(2)]
     thetas = (t0, t1)
@@ -102,6 +104,72 @@ def exact_step(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor
     return new[0], new[1]
 
 
+def exact_step(theta0: torch.Tensor, theta1: torch.Tensor, payoffs: torch.Tensor, gamma: float,
+               lr: float, lookahead: float, shaping: tuple[bool, bool]) -> tuple[torch.Tensor, torch.Tensor]:
+    """:func:`shaped_step` on the closed-form values."""
+    return shaped_step(lambda a, b: values(a, b, payoffs, gamma), theta0, theta1, lr, lookahead, shaping)
+
+
+def _magic_box(x: torch.Tensor) -> torch.Tensor:
+    """DiCE's operator: 1 in value, and d/dtheta of it is itself times dx/dtheta, to any order."""
+    return torch.exp(x - x.detach())
+
+
+def dice_values(theta0: torch.Tensor, theta1: torch.Tensor, states: np.ndarray, actions: np.ndarray,
+                rewards: np.ndarray, gamma: float) -> torch.Tensor:
+    """The DiCE surrogate of both players' discounted values from sampled episodes (Foerster et al. 2018,
+    "DiCE: The Infinitely Differentiable Monte-Carlo Estimator", from memory: docs/sources.md, "DiCE").
+
+    Its value is the mean discounted return of the episodes; its derivatives of every order with respect to
+    the logits are Monte-Carlo estimates of the value's derivatives. Each round's reward is weighted by the
+    magic box of the log-probabilities of every action (both players') up to that round. A baseline, as
+    the DiCE paper's variance reduction (from memory), adds ``(1 - box(logp of round t's actions)) * b_t``
+    terms, 0 in value; ``b_t`` is the batch's mean discounted reward-to-go from round t.
+
+    Args:
+        theta0, theta1: ``(5,)`` logits.
+        states: ``(B, T)`` the state index of each round (the same for both players).
+        actions: ``(B, T, 2)`` the actions (0 or 1).
+        rewards: ``(B, T, 2)`` the payoffs.
+    Returns: ``(2,)`` the surrogate per player.
+    """
+    s = torch.as_tensor(states, dtype=torch.long)
+    a = torch.as_tensor(actions, dtype=torch.float64)
+    r = torch.as_tensor(rewards, dtype=torch.float64)
+    T = s.shape[1]
+    disc = gamma ** torch.arange(T, dtype=torch.float64)                     # (T,)
+    logits = torch.stack([theta0, theta1])                                    # (2, 5)
+    z = logits[:, s].permute(1, 2, 0)                                          # (B, T, 2)
+    # log pi(a | s) with pi(0) = sigmoid(z): log sigmoid(z) for a = 0, log sigmoid(-z) for a = 1
+    logp = torch.nn.functional.logsigmoid(torch.where(a == 0, z, -z)).sum(-1)  # (B, T), both players
+    cum = torch.cumsum(logp, dim=1)
+    weighted = (_magic_box(cum).unsqueeze(-1) * r * disc[None, :, None]).sum(1).mean(0)  # (2,)
+    # baseline b_t: the batch's mean discounted reward-to-go from round t (what the gradient of round t's
+    # log-probability multiplies)
+    togo = torch.flip(torch.cumsum(torch.flip(r * disc[None, :, None], [1]), dim=1), [1])
+    base = togo.mean(0)                                                       # (T, 2)
+    correction = ((1 - _magic_box(logp)).unsqueeze(-1) * base.unsqueeze(0)).sum(1).mean(0)
+    return weighted + correction
+
+
+def play(probs: np.ndarray, game, rounds: int, rng: np.random.Generator, seed: int):
+    """Play ``game``'s copies (``matrix_v0``'s batched engine, two players, two actions) for ``rounds``
+    rounds with memory-one policies ``probs`` ``(2, 5)``; returns ``states (B, T)``, ``actions (B, T, 2)``
+    and ``rewards (B, T, 2)``."""
+    obs, _ = game.reset(seed=seed)
+    B = game.num_envs
+    states = np.zeros((B, rounds), np.int64)
+    actions = np.zeros((B, rounds, 2), np.int64)
+    rewards = np.zeros((B, rounds, 2), np.float64)
+    for t in range(rounds):
+        st = state_index(obs)[:, 0]                                # the same for both players
+        coop = probs[:, st].T                                      # (B, 2)
+        act = (rng.random((B, 2)) >= coop).astype(np.int64)         # 0 with probability coop
+        obs, rew, *_ = game.step(act)
+        states[:, t], actions[:, t], rewards[:, t] = st, act, rew
+    return states, actions, rewards
+
+
 def state_index(obs: np.ndarray) -> np.ndarray:
     """``matrix_v0`` observations ``(..., 4)`` (the previous joint action, one-hot per agent) -> the
     policy's state index ``(...,)``: 0 in the first round (all zeros), else ``1 + 2 * a0 + a1``."""
@@ -110,13 +178,6 @@ def state_index(obs: np.ndarray) -> np.ndarray:
     a0 = obs[..., 1].astype(np.int64)
     a1 = obs[..., 3].astype(np.int64)
     return np.where(first, 0, 1 + 2 * a0 + a1)
-
-
-def first_round_visit(p0: torch.Tensor, p1: torch.Tensor) -> torch.Tensor:
-    """``(4,)`` probability of each joint action in the first round."""
-    a = torch.stack([p0[0], 1 - p0[0]])
-    b = torch.stack([p1[0], 1 - p1[0]])
-    return torch.outer(a, b).flatten()
 
 
 @dataclass
@@ -157,6 +218,37 @@ def train_exact(table: np.ndarray, shaping: tuple[bool, bool], updates: int, see
         with torch.no_grad():
             history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
         t0, t1 = exact_step(t0, t1, payoffs, gamma, lr, lookahead, shaping)
+    with torch.no_grad():
+        v = values(t0, t1, payoffs, gamma)
+    history.append(((1 - gamma) * v).numpy())
+    theta = torch.stack([t0, t1])
+    return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
+                       reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
+
+
+def train_sampled(table: np.ndarray, shaping: tuple[bool, bool], updates: int, seed: int, copies: int = 1024,
+                  rounds: int = 150, gamma: float = 0.96, lr: float = 0.3, lookahead: float = 0.3,
+                  init_std: float = 1.0) -> ExactResult:
+    """:func:`train_exact` with the values' derivatives estimated by DiCE from ``copies`` episodes of
+    ``rounds`` rounds per update, played through ``matrix_v0``'s batched engine. The result's values and
+    history are the closed form's at each update's logits (for reading the result, not for learning)."""
+    from envs.matrix_v0 import MatrixGame
+
+    flat = np.asarray(table, dtype=np.float64).reshape(-1).tolist()
+    game = MatrixGame(copies, payoffs=flat, max_cycles=rounds, horizon="time_limit")
+    payoffs = joint_payoffs(table)
+    gen = torch.Generator().manual_seed(seed)
+    theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * init_std
+    rng = np.random.default_rng(seed)
+    t0, t1 = theta[0], theta[1]
+    history = []
+    for k in range(updates):
+        with torch.no_grad():
+            history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
+        probs = torch.sigmoid(torch.stack([t0, t1])).numpy()
+        batch = play(probs, game, rounds, rng, seed=seed * 1_000_003 + k)
+        t0, t1 = shaped_step(lambda a, b, batch=batch: dice_values(a, b, *batch, gamma), t0, t1, lr, lookahead,
+                             shaping)
     with torch.no_grad():
         v = values(t0, t1, payoffs, gamma)
     history.append(((1 - gamma) * v).numpy())

@@ -217,3 +217,61 @@ def test_lola_pair_ends_near_the_mixed_equilibrium_in_matching_pennies():
                  for s in SEEDS]
     assert max(lola_dev) < 0.05, lola_dev
     assert min(naive_dev) > 0.3, naive_dev
+
+
+# --------------------------------------------------------------------------- sampled (DiCE) gradients
+
+def _first_and_second(value_fn, t0, t1):
+    """grad_0 V_0 and LOLA's term (grad_1 V_0)^T (grad_0 grad_1 V_1), by autograd on ``value_fn``."""
+    a, b = t0.clone().requires_grad_(True), t1.clone().requires_grad_(True)
+    v = value_fn(a, b)
+    g00 = torch.autograd.grad(v[0], a, create_graph=True)[0]
+    g01 = torch.autograd.grad(v[0], b, create_graph=True)[0]
+    g11 = torch.autograd.grad(v[1], b, create_graph=True)[0]
+    shaping = torch.autograd.grad((g11 * g01.detach()).sum(), a)[0]
+    return g00.detach().numpy(), shaping.detach().numpy()
+
+
+def test_dice_derivatives_estimate_the_closed_forms():
+    # DiCE's derivatives of every order are unbiased Monte-Carlo estimates (Foerster et al. 2018, "DiCE",
+    # from memory: docs/sources.md, "DiCE"); checked here on the closed form's first derivative and on the
+    # second-order term that LOLA uses, from episodes played through the batched engine
+    rng0 = np.random.default_rng(1)
+    t0, t1 = torch.tensor(rng0.normal(size=5)), torch.tensor(rng0.normal(size=5))
+    payoffs = lola.joint_payoffs(IPD)
+    exact = _first_and_second(lambda a, b: lola.values(a, b, payoffs, GAMMA), t0, t1)
+    rounds = 300  # the rounds cut off weigh gamma^300 < 1e-5
+    game = MatrixGame(2048, payoffs=IPD_FLAT, max_cycles=rounds, horizon="time_limit")
+    probs = torch.sigmoid(torch.stack([t0, t1])).numpy()
+    rng = np.random.default_rng(0)
+    est = []
+    for k in range(6):
+        batch = lola.play(probs, game, rounds, rng, seed=k)
+        est.append(_first_and_second(lambda a, b, batch=batch: lola.dice_values(a, b, *batch, GAMMA), t0, t1))
+    for q, name in enumerate(["first derivative", "second-order term"]):
+        arr = np.array([e[q] for e in est])
+        mean, se = arr.mean(0), arr.std(0, ddof=1) / np.sqrt(len(arr))
+        # 4 standard errors of the mean over 6 batches (common practice, no source)
+        assert np.all(np.abs(mean - exact[q]) <= 4 * se + 1e-3), (name, mean, exact[q], se)
+    # sharp enough to matter: the first derivative's interval is a small fraction of its size
+    se0 = np.array([e[0] for e in est]).std(0, ddof=1) / np.sqrt(6)
+    assert np.all(4 * se0 < 0.3 * np.abs(exact[0]).max())
+
+
+def test_dice_surrogate_value_is_the_mean_discounted_return():
+    game = MatrixGame(64, payoffs=IPD_FLAT, max_cycles=20, horizon="time_limit")
+    probs = np.full((2, 5), 0.6)
+    s, a, r = lola.play(probs, game, 20, np.random.default_rng(0), seed=0)
+    v = lola.dice_values(torch.zeros(5), torch.zeros(5), s, a, r, GAMMA)
+    expected = (r * GAMMA ** np.arange(20)[None, :, None]).sum(1).mean(0)
+    np.testing.assert_allclose(v.detach().numpy(), expected, rtol=1e-12)
+
+
+def test_sampled_lola_pair_cooperates_and_naive_pair_defects_in_the_ipd():
+    # one seed each, a small budget: the qualitative results of the exact case, from sampled gradients
+    coop = lola.train_sampled(IPD, (True, True), updates=60, seed=0, copies=128, rounds=80, lr=1.0,
+                              lookahead=1.0)
+    defect = lola.train_sampled(IPD, (False, False), updates=60, seed=0, copies=128, rounds=80, lr=1.0,
+                                lookahead=1.0)
+    assert coop.reward_per_round.min() >= -1.2, coop.reward_per_round
+    assert defect.reward_per_round.max() <= -1.8, defect.reward_per_round
