@@ -191,6 +191,12 @@ def _table(summary: dict) -> str:
     for label, key in rows:
         lines.append(f"{label:<16}{_fmt(summary.get(key)):>{width}}"
                      + "".join(f"{_fmt(teams[n].get(key)):>{width}}" for n in teams))
+    if "closed_form" in summary:  # lola: the matrix game's mean reward per round, per agent
+        def per_round(res: dict) -> float | None:
+            r = res.get("reward_per_round")
+            return sum(r.values()) / len(r) if isinstance(r, dict) and r else None
+        lines.append(f"{'reward/round':<16}{_fmt(per_round(summary)):>{width}}"
+                     + "".join(f"{_fmt(per_round(teams[n])):>{width}}" for n in teams))
     if single:
         lines.append("(one agent: the social metrics need a team and are not shown; summary.json keeps them)")
     return "\n".join(lines)
@@ -280,8 +286,10 @@ def _train(args: argparse.Namespace) -> int:
         with _Interrupted(out), _Progress(args.quiet or not cfg.log.progress) as bar:  # progress: false = quiet
             summary = train.resume(out, progress=bar)  # checks the checkpoint even when the run is finished
         if finished is not None:
-            print(f"run: {out} is already finished: {summary['env_steps']} of {cfg.train.total_steps} env "
-                  f"steps (train.total_steps), {summary['episodes']} episodes; nothing to resume")
+            key, total = train.budget(cfg)
+            where = "learner.updates" if key == "updates" else "train.total_steps"
+            print(f"run: {out} is already finished: {summary[key]} of {total} {key.replace('_', ' ')} "
+                  f"({where}), {summary['episodes']} episodes; nothing to resume")
             print(_table(summary))
             print(f"summary: {out}/summary.json   evaluate it again: {command()} evaluate {out}")
             return 0
@@ -294,7 +302,8 @@ def _train(args: argparse.Namespace) -> int:
         out = args.out
         with _Interrupted(out), _Progress(args.quiet or not cfg.log.progress) as bar:
             summary = train.run(cfg, out, progress=bar)
-    print(f"run: {out}  ({summary['env_steps']} env steps, {summary['episodes']} episodes)")
+    updates = f"{summary['updates']} updates, " if "updates" in summary else ""
+    print(f"run: {out}  ({updates}{summary['env_steps']} env steps, {summary['episodes']} episodes)")
     print(_table(summary))
     print(f"summary: {out}/summary.json   policies: {out}/policies/")
     print(f"TensorBoard: {command('tensorboard')} --logdir {out}")

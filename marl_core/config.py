@@ -15,7 +15,7 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
         regrow_table: [0.0, 0.01, 0.01, 0.05, 0.05, 0.1]
       num_envs: 8
     learner:
-      kind: idqn                # idqn | maddpg; each kind has its own keys and defaults
+      kind: idqn                # idqn | maddpg | lola; each kind has its own keys and defaults
       share_parameters: false
       gamma: 0.99
       lr: 5.0e-4
@@ -467,7 +467,38 @@ class MADDPGConfig(_LearnerBase):
         return self
 
 
-LEARNERS: dict[str, type[_LearnerBase]] = {"idqn": IDQNConfig, "maddpg": MADDPGConfig}
+class LOLAConfig(BaseModel):
+    """Opponent shaping on two-player iterated matrix games: memory-one policies (marl_core/lola.py).
+
+    It learns from the game's table (exact) or from whole episodes played on the env's copies (sampled), so
+    it has no replay: a run is ``updates`` simultaneous updates of both players, and ``train.total_steps``,
+    ``train.eval_every`` and ``train.checkpoint_every`` (env steps) give way to ``updates``,
+    ``eval_every_updates`` and ``checkpoint_every_updates``."""
+
+    model_config = _STRICT
+
+    kind: Literal["lola"] = Field("lola", description="learning algorithm: opponent shaping (LOLA) or, with "
+                                  "opponent_shaping false, the naive learner, on two-player matrix games")
+    opponent_shaping: bool = Field(True, description="true: LOLA, each player differentiates through the "
+                                   "other's next step; false: the naive learner (plain policy gradient)")
+    gradient: Literal["exact", "sampled"] = Field("exact", description="exact: the closed-form value of the "
+                                                  "infinitely repeated game; sampled: DiCE estimates from "
+                                                  "env.num_envs episodes of env.params.max_cycles rounds "
+                                                  "per update")
+    # gamma 0.96, delta = eta = 1 (exact case): Foerster et al. 2018, from memory (docs/sources.md, "LOLA")
+    gamma: float = Field(0.96, ge=0.0, lt=1.0, description="discount factor per round")
+    lr: float = Field(1.0, gt=0.0, description="step size of each player's own update (delta)")
+    lookahead_lr: float = Field(1.0, gt=0.0, description="step size assumed for the opponent's update in "
+                                "the shaping term (eta)")
+    init_std: float = Field(1.0, ge=0.0, description="standard deviation of the initial logits, drawn "
+                            "around 0 (probability 0.5)")
+    updates: _PositiveInt = Field(200, description="simultaneous updates of both players")
+    eval_every_updates: _PositiveInt = Field(50, description="updates between evaluations")
+    checkpoint_every_updates: _PositiveInt = Field(50, description="updates between checkpoints")
+    torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process")
+
+
+LEARNERS: dict[str, type[BaseModel]] = {"idqn": IDQNConfig, "maddpg": MADDPGConfig, "lola": LOLAConfig}
 
 
 # ------------------------------------------------------------------------------------- train and log
@@ -580,8 +611,8 @@ class RunConfig(BaseModel):
     model_config = _STRICT
 
     env: EnvConfig = Field(default_factory=EnvConfig, description="the env")
-    learner: IDQNConfig | MADDPGConfig = Field(default_factory=IDQNConfig, discriminator="kind",
-                                               description="the learner; 'kind' picks its keys")
+    learner: IDQNConfig | MADDPGConfig | LOLAConfig = Field(default_factory=IDQNConfig, discriminator="kind",
+                                                            description="the learner; 'kind' picks its keys")
     train: TrainConfig = Field(default_factory=TrainConfig, description="the training schedule")
     log: LogConfig = Field(default_factory=LogConfig, description="what the run writes")
     reward: RewardConfig = Field(default_factory=RewardConfig, description="what each agent learns from")
@@ -598,6 +629,20 @@ class RunConfig(BaseModel):
         if isinstance(learner, dict) and "kind" not in learner:
             data["learner"] = {"kind": "idqn", **learner}
         return data
+
+
+    @model_validator(mode="after")
+    def _lola_fits(self) -> RunConfig:
+        """LOLA plays two-player matrix games and learns from the game's own payoffs."""
+        if self.learner.kind != "lola":
+            return self
+        if self.env.name != "matrix_v0":
+            raise _own_error(_not_allowed("env.name", self.env.name, "'matrix_v0' with learner.kind = 'lola' "
+                                          "(two players, two actions)"))
+        if self.reward != RewardConfig():
+            raise _own_error("the reward section is not allowed with learner.kind = 'lola': it learns from "
+                             "the game's payoffs; leave reward out")
+        return self
 
 
 SECTIONS: dict[str, Any] = {"env": EnvConfig, "learner": LEARNERS, "train": TrainConfig, "log": LogConfig,
@@ -713,8 +758,8 @@ def schema_table() -> list[dict[str, Any]]:
         kinds = list(LEARNERS)
         rows.append({"key": "learner.kind", "type": "str", "default": "idqn",
                      "bounds": "one of " + ", ".join(repr(k) for k in kinds),
-                     "meaning": "learning algorithm: independent DQN (idqn) or a MADDPG-style centralised "
-                                "critic (maddpg)", "kind": None})
+                     "meaning": "learning algorithm: independent DQN (idqn), a MADDPG-style centralised "
+                                "critic (maddpg) or opponent shaping on matrix games (lola)", "kind": None})
         names = [n for n in _LearnerBase.model_fields if n != "kind"]
         names += [n for cls in LEARNERS.values() for n in cls.model_fields if n not in names and n != "kind"]
         for name in names:

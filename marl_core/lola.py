@@ -255,3 +255,108 @@ def train_sampled(table: np.ndarray, shaping: tuple[bool, bool], updates: int, s
     theta = torch.stack([t0, t1])
     return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
                        reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
+
+
+# --------------------------------------------------------------------------- the learner of a run
+
+POLICY_KIND = "memory_one"
+
+
+class MemoryOnePolicy:
+    """One player's memory-one policy on its own, from ``matrix_v0`` observations (stochastic: it samples).
+
+    Shape:
+        act: obs (K, 4) -> actions (K,) int64
+    """
+
+    def __init__(self, logits: np.ndarray, agent: str, agent_index: int, seed: int = 0):
+        self.logits = np.asarray(logits, np.float64)
+        self.agent, self.agent_index = agent, agent_index
+        self.obs_space = {"shape": [4], "dtype": "uint8"}
+        self._rng = np.random.default_rng(seed)
+
+    @property
+    def probs(self) -> np.ndarray:
+        """``(5,)`` probability of action 0 in each state (first round, then after CC, CD, DC, DD)."""
+        return 1.0 / (1.0 + np.exp(-self.logits))
+
+    def act(self, obs: np.ndarray) -> np.ndarray:
+        obs = np.asarray(obs)
+        if tuple(obs.shape[1:]) != (4,):
+            raise ValueError(f"policy of {self.agent}: observations have shape {tuple(obs.shape[1:])}; "
+                             f"expected (4,) (two players, two actions)")
+        coop = self.probs[state_index(obs)]
+        return (self._rng.random(len(obs)) >= coop).astype(np.int64)
+
+    def save(self, path) -> object:
+        from marl_core.policy import POLICY_FORMAT, atomic_torch_save
+
+        return atomic_torch_save({"format": POLICY_FORMAT, "kind": POLICY_KIND, "agent": self.agent,
+                                  "agent_index": self.agent_index, "obs_space": self.obs_space,
+                                  "logits": torch.as_tensor(self.logits)}, path)
+
+
+class LOLA:
+    """Two memory-one players updated together, by LOLA or as naive learners (``learner.kind: lola``).
+
+    ``update(batch)`` makes one simultaneous update: from the closed form (``gradient: exact``; ``batch``
+    is None) or from DiCE on a batch of whole episodes (``gradient: sampled``; ``batch`` is
+    ``(states (B, T), actions (B, T, 2), rewards (B, T, 2))``, see :func:`play`). ``act`` samples both
+    players' actions from their policies: a memory-one policy is stochastic, with or without ``explore``.
+    """
+
+    uses_state = False
+
+    def __init__(self, spec, cfg, seed: int, table: np.ndarray):
+        if spec.num_agents != 2 or spec.num_actions != 2 or tuple(spec.obs_space.shape) != (4,):
+            raise ValueError(f"learner.kind = 'lola' needs two players with two actions each; the env has "
+                             f"{spec.num_agents} agents and {spec.num_actions} actions")
+        self.spec, self.cfg = spec, cfg
+        self.payoffs = joint_payoffs(table)
+        gen = torch.Generator().manual_seed(seed)
+        self.theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * cfg.init_std
+        self._rng = np.random.default_rng(seed)
+        self.shaping = (cfg.opponent_shaping, cfg.opponent_shaping)
+
+    def probs(self) -> np.ndarray:
+        return torch.sigmoid(self.theta).numpy()
+
+    def act(self, obs: np.ndarray, explore: bool = True, env_steps: int | None = None) -> np.ndarray:
+        s = state_index(np.asarray(obs))                     # (B, 2)
+        coop = self.probs()[np.arange(2)[None, :], s]         # (B, 2)
+        return (self._rng.random(coop.shape) >= coop).astype(np.int64)
+
+    def closed_form(self) -> dict[str, list[float]]:
+        """The current policies' discounted values and ``(1 - gamma) * values`` per player."""
+        with torch.no_grad():
+            v = values(self.theta[0], self.theta[1], self.payoffs, self.cfg.gamma)
+        return {"values": v.tolist(), "reward_per_round": ((1 - self.cfg.gamma) * v).tolist()}
+
+    def update(self, batch=None) -> dict[str, float]:
+        L = self.cfg
+        if L.gradient == "exact":
+            def fn(a, b):
+                return values(a, b, self.payoffs, L.gamma)
+        else:
+            def fn(a, b):
+                return dice_values(a, b, *batch, L.gamma)
+        t0, t1 = shaped_step(fn, self.theta[0], self.theta[1], L.lr, L.lookahead_lr, self.shaping)
+        self.theta = torch.stack([t0, t1])
+        cf = self.closed_form()
+        return {f"reward_per_round/{a}": r for a, r in zip(self.spec.agents, cf["reward_per_round"])}
+
+    def epsilon(self, env_steps: int) -> float:
+        return 0.0
+
+    def schedule(self, env_steps: int) -> None:
+        pass
+
+    def state_dict(self) -> dict:
+        return {"theta": self.theta.clone(), "rng": self._rng.bit_generator.state}
+
+    def load_state_dict(self, state: dict) -> None:
+        self.theta = state["theta"].clone().to(torch.float64)
+        self._rng.bit_generator.state = state["rng"]
+
+    def agent_policy(self, i: int) -> MemoryOnePolicy:
+        return MemoryOnePolicy(self.theta[i].numpy().copy(), self.spec.agents[i], i)

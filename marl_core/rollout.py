@@ -52,7 +52,8 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     """Play ``episodes`` episodes over the env's copies (reset with ``seed``) and average the results.
 
     Returns ``episodes``, per-agent mean ``returns``, ``return_mean`` (mean over agents), the four social
-    outcome metrics (means over episodes, NaN values left out), ``episode_length``; where the env reports
+    outcome metrics (means over episodes, NaN values left out), ``episode_length``, per-agent
+    ``reward_per_round`` (the mean over episodes of return / episode length); where the env reports
     them (our games), ``behaviour``: each of :data:`BEHAVIOUR` per agent per episode, the mean over agents,
     and ``behaviour_per_agent``: agent -> measure -> count per episode; and, with ``gif``, the
     ``frames`` of copy 0's first episode: its first state, then the state after each step. The env must be
@@ -92,6 +93,9 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
         "returns": {a: float(r) for a, r in zip(env.spec.agents, returns)},
         "return_mean": float(returns.mean()),
         "episode_length": float(np.mean([d["length"] for d in done])),
+        # the mean reward per step (a round of a matrix game), per agent: return / length of each episode
+        "reward_per_round": {a: float(r) for a, r in zip(
+            env.spec.agents, np.mean([d["returns"] / d["length"] for d in done], axis=0))},
     }
     for m in METRIC_NAMES:
         vals = np.array([d[m] for d in done], np.float64)

@@ -63,7 +63,7 @@ from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
 from marl_core.baselines import measured_teams
 from marl_core.config import RunConfig, config_hash, dump_config, load_stored_config
-from marl_core.errors import CheckpointError, RunDirError
+from marl_core.errors import CheckpointError, ConfigError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
 from marl_core.hints import command
 from marl_core.learners import build_learner
@@ -75,7 +75,7 @@ from marl_core.rollout import Collector, evaluate
 from marl_core.targets import linear_schedule
 from marl_core.team_env import make_team_env
 
-__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run", "finished_summary",
+__all__ = ["run", "resume", "evaluate_run", "CHECKPOINT_FORMAT", "load_run", "finished_summary", "budget",
            "TrainingInterrupted"]
 
 CHECKPOINT_FORMAT = 2  # 2: baselines beside the random team
@@ -131,7 +131,8 @@ class _DeferSigint:
 
 def _result(ev: dict[str, Any]) -> dict[str, Any]:
     """The JSON-ready part of an evaluation."""
-    keys = ("returns", "return_mean", "episode_length", *METRIC_NAMES, "behaviour", "behaviour_per_agent")
+    keys = ("returns", "return_mean", "episode_length", "reward_per_round", *METRIC_NAMES, "behaviour",
+            "behaviour_per_agent")
     return {"eval_episodes": ev["episodes"], **{k: ev[k] for k in keys if k in ev}}
 
 
@@ -174,6 +175,15 @@ class _Run:
         self.progress = progress
         self.writer = None
 
+    COUNTER = "env_steps"  # what the budget counts: summary.json, metrics.jsonl and TensorBoard steps
+
+    def count(self) -> int:
+        """Progress so far, in the budget's unit."""
+        return self.env_steps
+
+    def budget(self) -> int:
+        return self.cfg.train.total_steps
+
     # -- checkpoints
     def save_checkpoint(self) -> None:
         atomic_torch_save({
@@ -186,7 +196,7 @@ class _Run:
             "torch_rng": torch.get_rng_state(),
         }, self.out / "checkpoints" / "last.pt")
 
-    def load_checkpoint(self) -> None:
+    def _read_checkpoint(self) -> dict[str, Any]:
         path = self.out / "checkpoints" / "last.pt"
         data = safe_torch_load(path, "checkpoint")
         if data["format"] != CHECKPOINT_FORMAT:
@@ -195,6 +205,10 @@ class _Run:
         if data.get("config_hash") != config_hash(self.cfg):
             raise CheckpointError(f"checkpoint '{path}' was written for a different config.yaml; "
                                   f"restore the run's config.yaml or start a new run")
+        return data
+
+    def load_checkpoint(self) -> None:
+        data = self._read_checkpoint()
         c = data["counters"]
         self.env_steps, self.vec_steps = int(c["env_steps"]), int(c["vec_steps"])
         self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
@@ -224,7 +238,7 @@ class _Run:
         metrics = self.out / "metrics.jsonl"
         if purge_step is not None and metrics.exists():  # drop what was logged after the checkpoint
             keep = [line for line in metrics.read_text().splitlines()
-                    if line.strip() and json.loads(line)["env_steps"] <= purge_step]
+                    if line.strip() and json.loads(line)[self.COUNTER] <= purge_step]
             atomic_write(metrics, lambda f: f.write("".join(line + "\n" for line in keep)))
         if self.cfg.log.tensorboard:
             from torch.utils.tensorboard import SummaryWriter
@@ -235,10 +249,10 @@ class _Run:
 
     def scalar(self, tag: str, value: float) -> None:
         if self.writer is not None and value is not None and math.isfinite(value):
-            self.writer.add_scalar(tag, value, self.env_steps)
+            self.writer.add_scalar(tag, value, self.count())
 
     def log_eval(self, ev: dict[str, Any]) -> None:
-        row = {"env_steps": self.env_steps, "episodes": self.episodes, **_result(ev)}
+        row = {"env_steps": self.env_steps, self.COUNTER: self.count(), "episodes": self.episodes, **_result(ev)}
         with open(self.out / "metrics.jsonl", "a") as f:
             f.write(json.dumps(finite(row), sort_keys=True) + "\n")
         for m in (*METRIC_NAMES, "return_mean"):
@@ -256,7 +270,7 @@ class _Run:
         if ev.get("frames") and self.writer is not None:
             from marl_core.tb import add_gif
 
-            add_gif(self.writer, "eval/episode", ev["frames"], self.env_steps, fps=8)
+            add_gif(self.writer, "eval/episode", ev["frames"], self.count(), fps=8)
 
     # -- evaluation
     def evaluate(self, final: bool = False) -> dict[str, Any]:
@@ -301,9 +315,9 @@ class _Run:
         self.eval_env.close()
         steps = None
         if path.is_file():
-            steps = self.env_steps if safe else int(safe_torch_load(path, "checkpoint")["counters"]["env_steps"])
-        return TrainingInterrupted(self.out, self.env_steps, self.cfg.train.total_steps,
-                                   path if path.is_file() else None, steps, saved=safe)
+            steps = self.count() if safe else int(safe_torch_load(path, "checkpoint")["counters"][self.COUNTER])
+        return TrainingInterrupted(self.out, self.count(), self.budget(), path if path.is_file() else None,
+                                   steps, saved=safe)
 
     def _loop(self, sigint: _DeferSigint) -> None:
         cfg, L, T = self.cfg, self.cfg.learner, self.cfg.train
@@ -398,6 +412,126 @@ class _Run:
         return summary
 
 
+class _LolaRun(_Run):
+    """A ``learner.kind: lola`` run (marl_core/lola.py): ``learner.updates`` simultaneous updates of two
+    memory-one players, no replay. The budget counts updates; ``env_steps`` counts the rounds played for
+    sampled gradients (0 for exact ones: they learn from the game's table)."""
+
+    COUNTER = "updates"
+
+    def __init__(self, cfg: RunConfig, out: Path, progress: Callable | None):
+        from envs.matrix_v0 import build_table, resolve_params
+        from marl_core.lola import LOLA
+
+        self.cfg, self.out = cfg, out
+        torch.set_num_threads(cfg.learner.torch_threads)
+        e = cfg.env
+        self.env = make_team_env(e.name, e.params, e.num_envs, cfg.train.seed, with_state=False)
+        self.spec = self.env.spec
+        self.eval_env = _eval_env(cfg, cfg.train.eval_episodes, render=cfg.log.gif_every > 0)
+        _, table = build_table(resolve_params(e.params))
+        try:
+            self.learner = LOLA(self.spec, cfg.learner, cfg.train.seed, table)
+        except ValueError as err:
+            raise ConfigError(str(err)) from None
+        self.rounds = int(resolve_params(e.params)["max_cycles"])
+        self.updates = self.env_steps = self.vec_steps = self.episodes = self.evals = 0
+        self.baselines: dict[str, Any] | None = None
+        self.last_eval: dict[str, Any] | None = None
+        self.progress = progress
+        self.writer = None
+
+    def count(self) -> int:
+        return self.updates
+
+    def budget(self) -> int:
+        return self.cfg.learner.updates
+
+    def save_checkpoint(self) -> None:
+        atomic_torch_save({
+            "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
+            "counters": {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
+                         "evals": self.evals},
+            "baselines": json.dumps(finite(self.baselines)), "last_eval": json.dumps(finite(self.last_eval)),
+            "learner": self.learner.state_dict(), "torch_rng": torch.get_rng_state(),
+        }, self.out / "checkpoints" / "last.pt")
+
+    def load_checkpoint(self) -> None:
+        data = self._read_checkpoint()
+        c = data["counters"]
+        self.updates, self.env_steps = int(c["updates"]), int(c["env_steps"])
+        self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
+        self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
+        self.learner.load_state_dict(data["learner"])
+        torch.set_rng_state(data["torch_rng"])
+
+    def _play(self, col: Collector) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """One whole episode on every copy: states (B, T), actions (B, T, 2), rewards (B, T, 2)."""
+        from marl_core.lola import state_index
+
+        B, T = self.cfg.env.num_envs, self.rounds
+        states = np.zeros((B, T), np.int64)
+        actions = np.zeros((B, T, 2), np.int64)
+        rewards = np.zeros((B, T, 2), np.float64)
+        for t in range(T):
+            states[:, t] = state_index(col.obs)[:, 0]
+            actions[:, t] = self.learner.act(col.obs)
+            rewards[:, t] = col.step(actions[:, t]).rewards
+        self.env_steps += B * T
+        self.vec_steps += T
+        self.episodes += B
+        return states, actions, rewards
+
+    def _loop(self, sigint: _DeferSigint) -> None:
+        L, T = self.cfg.learner, self.cfg.train
+        col = Collector(self.env, T.seed + self.updates) if L.gradient == "sampled" else None
+        if self.progress is not None:
+            self.progress(self.updates, L.updates, self.last_eval)
+        while self.updates < L.updates:
+            if sigint.requested:
+                raise KeyboardInterrupt
+            self._between_steps = False
+            batch = self._play(col) if col is not None else None
+            stats = self.learner.update(batch)
+            self.updates += 1
+            if self.updates % self.cfg.log.log_every == 0 or self.updates == 1:
+                for k, v in stats.items():
+                    self.scalar(f"train/{k}", v)
+            done = self.updates >= L.updates
+            if self.updates % L.eval_every_updates == 0 or done:
+                self.evaluate(final=done)
+            if self.updates % L.checkpoint_every_updates == 0 or done:
+                self.save_checkpoint()
+            self._between_steps = True
+            if self.progress is not None:
+                self.progress(self.updates, L.updates, self.last_eval)
+
+    def finish(self) -> dict[str, Any]:
+        if self.last_eval is None:
+            self.evaluate(final=True)
+        for i, agent in enumerate(self.spec.agents):
+            self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
+        summary = {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
+                   **self.last_eval, "random": self.baselines["random"], "baselines": self.baselines,
+                   "closed_form": self.learner.closed_form(), "policies": self._policies(),
+                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
+        write_json(self.out / "summary.json", summary)
+        if self.writer is not None:
+            self.writer.close()
+        self.env.close()
+        self.eval_env.close()
+        return summary
+
+    def _policies(self) -> dict[str, dict[str, float]]:
+        """Each player's probability of action 0 per state, by name."""
+        names = ("first", "after_00", "after_01", "after_10", "after_11")
+        return {a: dict(zip(names, map(float, p))) for a, p in zip(self.spec.agents, self.learner.probs())}
+
+
+def _make_run(cfg: RunConfig, out: Path, progress: Callable | None) -> _Run:
+    return (_LolaRun if cfg.learner.kind == "lola" else _Run)(cfg, out, progress)
+
+
 def _zero_one(space: Any) -> bool:
     """A uint8 Box whose every cell lies in [0, 1]: its values can be stored bit-packed."""
     return (getattr(space, "dtype", None) == np.uint8 and bool(np.all(space.low == 0))
@@ -423,7 +557,7 @@ def run(cfg: RunConfig, out: str | Path,
     """Train from scratch into the new run directory ``out``; return the summary."""
     out = Path(out)
     _fresh_dir(out)
-    r = _Run(cfg, out, progress)  # builds envs and learner first: a bad env fails before any file
+    r = _make_run(cfg, out, progress)  # builds envs and learner first: a bad env fails before any file
     out.mkdir(parents=True, exist_ok=True)
     (out / "checkpoints").mkdir(exist_ok=True)
     dump_config(cfg, out / "config.yaml")
@@ -452,8 +586,17 @@ def finished_summary(out: str | Path) -> dict[str, Any] | None:
         summary = json.loads(path.read_text())
     except (OSError, ValueError):
         return None
-    steps = summary.get("env_steps") if isinstance(summary, dict) else None
-    return summary if isinstance(steps, int) and steps >= cfg.train.total_steps else None
+    key, total = budget(cfg)
+    steps = summary.get(key) if isinstance(summary, dict) else None
+    return summary if isinstance(steps, int) and steps >= total else None
+
+
+def budget(cfg: RunConfig) -> tuple[str, int]:
+    """What a run's length counts and how much of it: ``("env_steps", train.total_steps)``, or for
+    ``learner.kind: lola`` ``("updates", learner.updates)``."""
+    if cfg.learner.kind == "lola":
+        return "updates", cfg.learner.updates
+    return "env_steps", cfg.train.total_steps
 
 
 def resume(out: str | Path,
@@ -463,11 +606,11 @@ def resume(out: str | Path,
     cfg = load_run(out)
     if not (out / "checkpoints" / "last.pt").is_file():
         raise RunDirError(f"run directory '{out}' has no checkpoint to resume from (checkpoints/last.pt)")
-    r = _Run(cfg, out, progress)
+    r = _make_run(cfg, out, progress)
     r.load_checkpoint()
-    if r.env_steps >= cfg.train.total_steps and (out / "summary.json").is_file():
+    if r.count() >= r.budget() and (out / "summary.json").is_file():
         return json.loads((out / "summary.json").read_text())
-    r.open_logs(purge_step=r.env_steps)
+    r.open_logs(purge_step=r.count())
     return r.train()
 
 
@@ -483,7 +626,7 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
         raise RunDirError(f"--episodes = {episodes} is not allowed; expected an integer >= 1")
     n = episodes or cfg.train.eval_episodes
     seed = cfg.train.seed + EVAL_SEED_OFFSET if seed is None else seed
-    r = _Run(cfg, out, None)
+    r = _make_run(cfg, out, None)
     r.load_checkpoint()
     r.env.close()
     r.eval_env.close()
@@ -494,5 +637,8 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
         from envs.render import write_gif
 
         write_gif(ev["frames"], gif)
-    return {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": baselines["random"],
+    out_ = {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": baselines["random"],
             "baselines": baselines}
+    if isinstance(r, _LolaRun):
+        out_ = {"updates": r.updates, **out_, "closed_form": r.learner.closed_form(), "policies": r._policies()}
+    return out_

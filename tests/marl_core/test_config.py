@@ -197,7 +197,7 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
     ({"learner": {"eps_start": 0.1, "eps_end": 0.2}}, [],
      r"^learner\.eps_end = 0\.2 is not allowed: expected a number <= learner\.eps_start \(0\.1\)$"),
     ({"learner": {"kind": "ppo"}}, [],
-     r"^learner\.kind = 'ppo' is not allowed: expected one of 'idqn', 'maddpg'$"),
+     r"^learner\.kind = 'ppo' is not allowed: expected one of 'idqn', 'maddpg', 'lola'$"),
     ({"learner": {"kind": "maddpg", "double": False}}, [],
      r"^learner\.double is an idqn key; learner\.kind is 'maddpg'$"),
     ({"learner": {"tau": 0.1}}, [], r"^learner\.tau is a maddpg key; learner\.kind is 'idqn'$"),
@@ -283,7 +283,7 @@ def test_schema_table_lists_every_key_with_a_description():
         assert row["meaning"] and "\n" not in row["meaning"], row["key"]
         assert row["type"], row["key"]
     keys = {row["key"] for row in rows}
-    models = {"env": [config_module.EnvConfig], "learner": [IDQNConfig, MADDPGConfig],
+    models = {"env": [config_module.EnvConfig], "learner": [IDQNConfig, MADDPGConfig, config_module.LOLAConfig],
               "train": [config_module.TrainConfig], "log": [config_module.LogConfig],
               "reward": [config_module.RewardConfig],
               "reward.inequity_aversion": [config_module.InequityAversion]}
@@ -294,7 +294,8 @@ def test_schema_table_lists_every_key_with_a_description():
 
 def test_schema_table_defaults_are_the_model_defaults():
     by_kind = {"idqn": config_to_dict(parse_config({})),
-               "maddpg": config_to_dict(parse_config({"learner": {"kind": "maddpg"}}))}
+               "maddpg": config_to_dict(parse_config({"learner": {"kind": "maddpg"}})),
+               "lola": config_to_dict(parse_config({"env": {"name": "matrix_v0"}, "learner": {"kind": "lola"}}))}
     for row in schema_table():
         if row["key"] == "env.params":
             continue  # the game fills its own defaults in
@@ -308,7 +309,9 @@ def test_schema_table_bounds():
     rows = {(r["key"], r["kind"]): r for r in schema_table()}
     assert rows["learner.lr", "idqn"]["bounds"] == "> 0"
     assert rows["learner.tau", "maddpg"]["bounds"] == "in (0, 1]"
-    assert rows["learner.grad_clip", None]["type"] == "float | null"
+    assert rows["learner.grad_clip", "idqn"]["type"] == "float | null"  # lola has no networks to clip
+    assert rows["learner.torch_threads", None]["bounds"] == ">= 1"
+    assert rows["learner.gamma", "lola"]["bounds"] == "in [0, 1)"
     assert rows["learner.critic", "maddpg"]["bounds"] == "one of 'shared', 'per_agent'"
     assert rows["train.seed", None]["bounds"] == ">= 0"
 
