@@ -24,10 +24,14 @@ TINY = {"env.num_envs": 2, "env.params.num_agents": 2, "env.params.view_radius":
         "learner.replay_size": 1000, "learner.warmup_steps": 100, "train.total_steps": 200,
         "train.eval_every": 200, "train.eval_episodes": 2, "train.checkpoint_every": 200,
         "log.tensorboard": False, "log.gif_every": 0, "log.progress": False}
+# a matrix-game study of learner.kind lola: a few updates, a few evaluation games
+TINY_LOLA = {"learner.updates": 5, "learner.eval_every_updates": 5, "train.eval_episodes": 4,
+             "log.tensorboard": False, "log.progress": False}
 
 
-def test_the_bundled_studies_are_the_five_of_the_readme():
-    assert NAMES == ["cleanup_cures", "learners_cleanup", "learners_harvest", "long_commons", "scarcity_harvest"]
+def test_the_bundled_studies_are_the_six_of_the_readme():
+    assert NAMES == ["cleanup_cures", "learners_cleanup", "learners_harvest", "lola_ipd", "long_commons",
+                     "scarcity_harvest"]
 
 
 @pytest.mark.parametrize("name", NAMES)
@@ -43,9 +47,13 @@ def test_a_study_header_states_finding_source_expectation_and_duration(name):
 def _tiny_spec(name: str, tmp: Path) -> Path:
     data = yaml.safe_load((STUDIES / f"{name}.yaml").read_text())
     data["base"] = str((STUDIES / data["base"]).resolve())
-    layout = "cleanup_tiny" if "cleanup" in data["base"] else "harvest_tiny"
     data["seeds"] = [0, 1]
-    data["set"] = {**data.get("set", {}), **TINY, "env.params.layout": layout}
+    base = yaml.safe_load(Path(data["base"]).read_text())
+    if base["learner"]["kind"] == "lola":
+        data["set"] = {**data.get("set", {}), **TINY_LOLA}
+    else:
+        layout = "cleanup_tiny" if "cleanup" in data["base"] else "harvest_tiny"
+        data["set"] = {**data.get("set", {}), **TINY, "env.params.layout": layout}
     data["smoke_test"] = True
     path = tmp / f"{name}.yaml"
     path.write_text(yaml.safe_dump(data, sort_keys=False))
