@@ -7,6 +7,7 @@ Commands:
     marl-core ablate SPEC --out SWEEP_DIR [--workers N] [--backend local|ray] [--address ADDR] [--retry-failed]
     marl-core status SWEEP_DIR [--json]
     marl-core report SWEEP_DIR [--test mannwhitney|welch]
+    marl-core crossplay RUN_DIR RUN_DIR ... --out DIR [--episodes N] [--with NAME ...]
     marl-core envs [--json]
     marl-core demo [--out DIR] [--seed N] [--agents N] [--steps N] [--no-gif]
 
@@ -84,6 +85,14 @@ def _parser() -> argparse.ArgumentParser:
     rp = sub.add_parser("report", help="write SWEEP_DIR/report/: report.md, runs.csv, figures")
     rp.add_argument("sweep_dir")
     rp.add_argument("--test", default="mannwhitney", help="mannwhitney (default) or welch")
+    c = sub.add_parser("crossplay", help="seat agents of different runs together and evaluate every seating")
+    c.add_argument("run_dirs", nargs="+", metavar="RUN_DIR", help="finished run directories (LABEL=RUN_DIR "
+                   "groups runs under one label, as seeds of one source)")
+    c.add_argument("--out", required=True, help="new directory for crossplay.csv, crossplay.json, heatmaps")
+    c.add_argument("--episodes", type=int, default=32, help="episodes per seating (default: 32)")
+    c.add_argument("--with", dest="members", action="append", default=[], metavar="NAME",
+                   help="a non-learning member as a source: random, noop or a scripted team of the game "
+                   "(repeatable)")
     e = sub.add_parser("envs", help="list the games and their parameters")
     e.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return p
@@ -432,12 +441,31 @@ def _report(args: argparse.Namespace) -> int:
     return 0
 
 
+def _crossplay(args: argparse.Namespace) -> int:
+    from marl_core.crossplay import crossplay
+
+    res = crossplay(args.run_dirs, args.out, episodes=args.episodes, members=args.members)
+    labels = [s["label"] for s in res["sources"]]
+    cells = {(c["focal"], c["others"]): c for c in res["cells"]}
+    width = max(12, *(len(lab) + 2 for lab in labels))
+    print(f"cross-play of {', '.join(labels)} on {res['game']['name']} ({res['episodes']} episodes a seating); "
+          f"efficiency, focal source (rows) with the others (columns):")
+    print(f"{'':<{width}}" + "".join(f"{lab:>{width}}" for lab in labels))
+    for x in labels:
+        print(f"{x:<{width}}" + "".join(f"{_fmt(cells[x, y]['efficiency']):>{width}}" for y in labels))
+    gap = res["gap"].get("efficiency")
+    if gap is not None:
+        print(f"cross-play gap (self-play minus cross-play, learned sources): efficiency {_fmt(gap)}")
+    print(f"table: {args.out}/crossplay.csv   heatmaps: {args.out}/heatmap_*.png")
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = None
     try:
         args = _parser().parse_args(argv)
         return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate, "ablate": _ablate,
-                "status": _status, "report": _report}[args.command](args)
+                "status": _status, "report": _report, "crossplay": _crossplay}[args.command](args)
     except (UsageError, EnvError, MarlError) as err:
         print(f"marl-core: error: {err}", file=sys.stderr)
         return 2

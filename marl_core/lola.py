@@ -259,43 +259,6 @@ def train_sampled(table: np.ndarray, shaping: tuple[bool, bool], updates: int, s
 
 # --------------------------------------------------------------------------- the learner of a run
 
-POLICY_KIND = "memory_one"
-
-
-class MemoryOnePolicy:
-    """One player's memory-one policy on its own, from ``matrix_v0`` observations (stochastic: it samples).
-
-    Shape:
-        act: obs (K, 4) -> actions (K,) int64
-    """
-
-    def __init__(self, logits: np.ndarray, agent: str, agent_index: int, seed: int = 0):
-        self.logits = np.asarray(logits, np.float64)
-        self.agent, self.agent_index = agent, agent_index
-        self.obs_space = {"shape": [4], "dtype": "uint8"}
-        self._rng = np.random.default_rng(seed)
-
-    @property
-    def probs(self) -> np.ndarray:
-        """``(5,)`` probability of action 0 in each state (first round, then after CC, CD, DC, DD)."""
-        return 1.0 / (1.0 + np.exp(-self.logits))
-
-    def act(self, obs: np.ndarray) -> np.ndarray:
-        obs = np.asarray(obs)
-        if tuple(obs.shape[1:]) != (4,):
-            raise ValueError(f"policy of {self.agent}: observations have shape {tuple(obs.shape[1:])}; "
-                             f"expected (4,) (two players, two actions)")
-        coop = self.probs[state_index(obs)]
-        return (self._rng.random(len(obs)) >= coop).astype(np.int64)
-
-    def save(self, path) -> object:
-        from marl_core.policy import POLICY_FORMAT, atomic_torch_save
-
-        return atomic_torch_save({"format": POLICY_FORMAT, "kind": POLICY_KIND, "agent": self.agent,
-                                  "agent_index": self.agent_index, "obs_space": self.obs_space,
-                                  "logits": torch.as_tensor(self.logits)}, path)
-
-
 class LOLA:
     """Two memory-one players updated together, by LOLA or as naive learners (``learner.kind: lola``).
 
@@ -358,5 +321,7 @@ class LOLA:
         self.theta = state["theta"].clone().to(torch.float64)
         self._rng.bit_generator.state = state["rng"]
 
-    def agent_policy(self, i: int) -> MemoryOnePolicy:
+    def agent_policy(self, i: int):
+        from marl_core.policy import MemoryOnePolicy
+
         return MemoryOnePolicy(self.theta[i].numpy().copy(), self.spec.agents[i], i)

@@ -18,7 +18,8 @@ from marl_core.errors import CheckpointError
 from marl_core.files import atomic_write
 from marl_core.nets import AgentNet, build_net
 
-__all__ = ["AgentPolicy", "POLICY_FORMAT", "atomic_torch_save", "safe_torch_load"]
+__all__ = ["AgentPolicy", "MemoryOnePolicy", "POLICY_FORMAT", "atomic_torch_save", "safe_torch_load",
+           "load_policy"]
 
 POLICY_FORMAT = 1
 
@@ -65,6 +66,14 @@ class AgentPolicy:
             ids[:, self.agent_index] = 1.0
         return self.net(x, ids)
 
+    @property
+    def num_actions(self) -> int:
+        return int(self.description["num_actions"])
+
+    def for_seat(self, seat: int) -> AgentPolicy:
+        """The policy to play in another seat: the same (our observations are each agent's own view)."""
+        return self
+
     def act(self, obs: np.ndarray) -> np.ndarray:
         expect = tuple(self.obs_space["shape"])
         if tuple(obs.shape[1:]) != expect:
@@ -92,3 +101,73 @@ class AgentPolicy:
         net.load_state_dict(data["weights"])
         net.eval()
         return cls(net, data["net"], data["kind"], data["agent"], data["agent_index"], data["obs_space"])
+
+
+MEMORY_ONE = "memory_one"
+
+
+class MemoryOnePolicy:
+    """One player's memory-one policy on a two-player, two-action ``matrix_v0`` game (``learner.kind:
+    lola``): five logits, the probability of action 0 in the first round and after each previous joint
+    action (agent_0's action first). It samples, so it has its own generator.
+
+    Shape:
+        act: obs (K, 4) -> actions (K,) int64
+    """
+
+    num_actions = 2
+
+    def __init__(self, logits: np.ndarray, agent: str, agent_index: int, seed: int = 0, seat: int | None = None):
+        self.logits = np.asarray(logits, np.float64)
+        self.agent, self.agent_index = agent, agent_index
+        self.kind = MEMORY_ONE
+        self.obs_space = {"shape": [4], "dtype": "uint8"}
+        self.seat = agent_index if seat is None else seat
+        self._rng = np.random.default_rng(seed)
+
+    @property
+    def probs(self) -> np.ndarray:
+        """``(5,)`` probability of action 0: first round, then after (0,0), (0,1), (1,0), (1,1)."""
+        return 1.0 / (1.0 + np.exp(-self.logits))
+
+    def for_seat(self, seat: int, seed: int = 0) -> MemoryOnePolicy:
+        """The policy playing in ``seat``: the observation lists agent_0's action first, so a player
+        trained in the other seat reads it with the two blocks swapped (its own action, then the other's,
+        as it learned them)."""
+        return MemoryOnePolicy(self.logits, self.agent, self.agent_index, seed=seed, seat=seat)
+
+    def act(self, obs: np.ndarray) -> np.ndarray:
+        obs = np.asarray(obs)
+        if tuple(obs.shape[1:]) != (4,):
+            raise ValueError(f"policy of {self.agent}: observations have shape {tuple(obs.shape[1:])}; "
+                             f"expected (4,) (two players, two actions)")
+        if self.seat != self.agent_index:
+            obs = obs[:, [2, 3, 0, 1]]
+        first = obs.sum(axis=-1) == 0
+        state = np.where(first, 0, 1 + 2 * obs[:, 1].astype(np.int64) + obs[:, 3].astype(np.int64))
+        return (self._rng.random(len(obs)) >= self.probs[state]).astype(np.int64)
+
+    def save(self, path: str | Path) -> Path:
+        return atomic_torch_save({"format": POLICY_FORMAT, "kind": MEMORY_ONE, "agent": self.agent,
+                                  "agent_index": self.agent_index, "obs_space": self.obs_space,
+                                  "logits": torch.as_tensor(self.logits, dtype=torch.float64)}, path)
+
+    @classmethod
+    def load(cls, path: str | Path) -> MemoryOnePolicy:
+        data = safe_torch_load(path, "policy")
+        if data.get("kind") != MEMORY_ONE or "logits" not in data:
+            raise CheckpointError(f"policy '{path}' is not a memory-one policy file")
+        if data["format"] != POLICY_FORMAT:
+            raise CheckpointError(f"policy '{path}' has format {data['format']}; this version reads "
+                                  f"format {POLICY_FORMAT}")
+        logits = data["logits"]
+        if not isinstance(logits, torch.Tensor) or tuple(logits.shape) != (5,):
+            raise CheckpointError(f"policy '{path}' is not a memory-one policy file (logits of shape "
+                                  f"{tuple(getattr(logits, 'shape', ()))}; expected (5,))")
+        return cls(logits.numpy(), str(data["agent"]), int(data["agent_index"]))
+
+
+def load_policy(path: str | Path) -> AgentPolicy | MemoryOnePolicy:
+    """Any agent policy file of ours (a network's or a memory-one policy)."""
+    data = safe_torch_load(path, "policy")
+    return (MemoryOnePolicy if data.get("kind") == MEMORY_ONE else AgentPolicy).load(path)

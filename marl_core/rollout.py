@@ -48,7 +48,8 @@ def random_policy(num_actions: int, seed: int) -> Policy:
     return lambda obs: rng.integers(num_actions, size=obs.shape[:2])
 
 
-def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool = False) -> dict[str, Any]:
+def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool = False,
+             keep_episodes: bool = False) -> dict[str, Any]:
     """Play ``episodes`` episodes over the env's copies (reset with ``seed``) and average the results.
 
     Returns ``episodes``, per-agent mean ``returns``, ``return_mean`` (mean over agents), the four social
@@ -58,7 +59,9 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
     and ``behaviour_per_agent``: agent -> measure -> count per episode; and, with ``gif``, the
     ``frames`` of copy 0's first episode: its first state, then the state after each step. The env must be
     made with ``render=True`` for the last one: the env resets copy 0 inside the step that ends its episode,
-    so that frame is the step's ``final_frame`` (rendered before the reset), not ``render(0)``.
+    so that frame is the step's ``final_frame`` (rendered before the reset), not ``render(0)``. With
+    ``keep_episodes``, ``per_episode`` holds each finished episode's ``returns`` (per agent) and social
+    metrics, in the order the episodes finished (for intervals over episodes).
     """
     col = Collector(env, seed)
     B = env.num_envs
@@ -106,6 +109,9 @@ def evaluate(env: TeamEnv, policy: Policy, episodes: int, seed: int, gif: bool =
         out["behaviour"] = {k: float(v.mean()) for k, v in per_agent.items()}
         out["behaviour_per_agent"] = {a: {k: float(per_agent[k][i]) for k in measures}
                                       for i, a in enumerate(env.spec.agents)}
+    if keep_episodes:
+        out["per_episode"] = [{"returns": [float(x) for x in d["returns"]],
+                               **{m: float(d[m]) for m in METRIC_NAMES}} for d in done]
     if gif:
         out["frames"] = [f for f in frames if f is not None]
     return out
