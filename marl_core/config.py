@@ -605,6 +605,42 @@ class LogConfig(BaseModel):
 
 # ---------------------------------------------------------------------------------------------- run
 
+# learner keys that describe the one replay every seat group shares: a seat's learner takes them from the
+# top-level learner section (marl_core/seats.py)
+SHARED_REPLAY_KEYS = ("batch_size", "replay_size", "pack_replay", "warmup_steps", "train_every",
+                      "updates_per_round", "replay_ratio")
+
+
+class SeatConfig(BaseModel):
+    """What sits in one seat or group of seats (marl_core/seats.py): exactly one of ``learner``,
+    ``policy`` or ``member``."""
+
+    model_config = _STRICT
+
+    learner: IDQNConfig | MADDPGConfig | None = Field(None, discriminator="kind", description="a learner "
+                                                      "of its own for these seats (a learner section; its "
+                                                      "replay keys come from the top-level learner)")
+    policy: str | None = Field(None, description="a saved policy, kept fixed: a policy file for one seat, or a "
+                               "run's policies/ directory (one <agent>.pt per seat)")
+    member: str | None = Field(None, description="a non-learning member: random, noop or one of the game's "
+                               "scripted teams (each seat plays its part of the team's rule)")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _learner_kind_default(cls, data: Any) -> Any:
+        if isinstance(data, dict) and isinstance(data.get("learner"), dict) and "kind" not in data["learner"]:
+            data = {**data, "learner": {"kind": "idqn", **data["learner"]}}
+        return data
+
+    @model_validator(mode="after")
+    def _exactly_one(self) -> SeatConfig:
+        given = [k for k in ("learner", "policy", "member") if getattr(self, k) is not None]
+        if len(given) != 1:
+            raise _own_error(f"a seat takes exactly one of learner, policy or member; got "
+                             f"{', '.join(given) if given else 'none'}")
+        return self
+
+
 class RunConfig(BaseModel):
     """A whole run: env, learner, training schedule and logging."""
 
@@ -616,6 +652,9 @@ class RunConfig(BaseModel):
     train: TrainConfig = Field(default_factory=TrainConfig, description="the training schedule")
     log: LogConfig = Field(default_factory=LogConfig, description="what the run writes")
     reward: RewardConfig = Field(default_factory=RewardConfig, description="what each agent learns from")
+    seats: dict[str, SeatConfig] | None = Field(None, description="mixed teams: agent id (or ids joined by "
+                                                "commas, a group) -> what sits there; agents not named "
+                                                "learn with the top-level learner (null: every agent does)")
 
     @model_validator(mode="before")
     @classmethod
@@ -628,6 +667,9 @@ class RunConfig(BaseModel):
         learner = data.get("learner")
         if isinstance(learner, dict) and "kind" not in learner:
             data["learner"] = {"kind": "idqn", **learner}
+        seats = data.get("seats")
+        if isinstance(seats, dict):
+            data["seats"] = _fill_seat_replay_keys(seats, data.get("learner") or {"kind": "idqn"})
         return data
 
 
@@ -642,7 +684,35 @@ class RunConfig(BaseModel):
         if self.reward != RewardConfig():
             raise _own_error("the reward section is not allowed with learner.kind = 'lola': it learns from "
                              "the game's payoffs; leave reward out")
+        if self.seats:
+            raise _own_error("the seats section is not allowed with learner.kind = 'lola': it trains both "
+                             "players together; leave seats out")
         return self
+
+
+def _fill_seat_replay_keys(seats: dict[str, Any], top: Any) -> dict[str, Any]:
+    """Each seat learner's :data:`SHARED_REPLAY_KEYS` from the top-level learner (an error when a seat sets
+    one to another value)."""
+    kind = top.get("kind", "idqn") if isinstance(top, dict) else None
+    if kind not in ("idqn", "maddpg"):
+        return seats
+    try:
+        resolved = LEARNERS[kind].model_validate(top).model_dump(mode="python")
+    except ValidationError:
+        return seats  # the learner section's own error is reported
+    out = {}
+    for name, seat in seats.items():
+        if isinstance(seat, dict) and isinstance(seat.get("learner"), dict):
+            own = dict(seat["learner"])
+            for key in SHARED_REPLAY_KEYS:
+                if key in own and own[key] != resolved[key]:
+                    raise _own_error(f"seats.{name}.learner.{key} = {own[key]!r} is not allowed: the seats share "
+                                     f"one replay; set it in the learner section (learner.{key} = "
+                                     f"{resolved[key]!r})")
+                own[key] = resolved[key]
+            seat = {**seat, "learner": own}
+        out[name] = seat
+    return out
 
 
 SECTIONS: dict[str, Any] = {"env": EnvConfig, "learner": LEARNERS, "train": TrainConfig, "log": LogConfig,
@@ -748,6 +818,8 @@ def schema_table() -> list[dict[str, Any]]:
     ``env.params`` are the env's own: for our games see ``envs.list_envs()``.
     """
     rows: list[dict[str, Any]] = []
+    rows_end = [{"key": "seats", "type": "mapping | null", "default": None, "bounds": "",
+                 "meaning": RunConfig.model_fields["seats"].description, "kind": None}]
     for section, model in SECTIONS.items():
         if section != "learner":
             rows.extend(_row(section, model, name, None) for name in model.model_fields)
@@ -769,7 +841,7 @@ def schema_table() -> list[dict[str, Any]]:
                 rows.append(_row(section, LEARNERS[owners[0]], name, None))
             else:
                 rows.extend(_row(section, LEARNERS[k], name, k) for k in owners)
-    return rows
+    return rows + rows_end
 
 
 def valid_keys() -> list[str]:
@@ -923,7 +995,8 @@ def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict
 
     Raises:
         ConfigError: for an item without ``=``, a key path the schema does not have (under
-            ``env.params`` any name is accepted here; the game checks it at validation), or a path
+            ``env.params`` and ``seats`` any name is accepted here; the game and the seats section check
+            it at validation), or a path
             through a value that is not a mapping.
     """
     if isinstance(overrides, str):
@@ -940,7 +1013,8 @@ def apply_overrides(data: dict[str, Any], overrides: Sequence[str] = ()) -> dict
         under_params = parts[:2] == ["env", "params"] and len(parts) > 2
         if under_params:
             params.append((item, parts[2]))
-        if path not in known and not under_params:
+        under_seats = parts[0] == "seats" and len(parts) > 1  # seat names are the env's agent ids
+        if path not in known and not under_params and not under_seats:
             if parts[0] in SECTIONS and len(parts) > 1:
                 section = parts[0] + "."
                 names = [k[len(section):] for k in valid_keys() if k.startswith(section)]
@@ -1073,6 +1147,8 @@ def config_hash(cfg: RunConfig) -> str:
     # earlier runs keep their hash (run ids in sweep ledgers, checkpoints to resume)
     if data["reward"] == RewardConfig().model_dump(mode="python"):
         del data["reward"]
+    if data.get("seats", _NOT_SET) is None:  # added later: no seats is every run before it
+        del data["seats"]
     for key, neutral in _ADDED_LEARNER_KEYS.items():
         if key in data["learner"] and data["learner"][key] == neutral:
             del data["learner"][key]

@@ -151,7 +151,13 @@ class _Run:
         self.env = make_team_env(e.name, e.params, e.num_envs, seed, with_state=wants_state)
         self.spec = self.env.spec
         self.eval_env = _eval_env(cfg, cfg.train.eval_episodes, render=cfg.log.gif_every > 0)
-        self.learner = build_learner(self.spec, cfg.learner, seed)
+        if cfg.seats:
+            from marl_core.seats import SeatedTeam
+
+            self.learner = SeatedTeam(self.spec, cfg, seed, e.name, out)
+        else:
+            self.learner = build_learner(self.spec, cfg.learner, seed)
+        self._train_act = self.acting(self.env)
         L = cfg.learner
         state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
         self.keep_state = state_space is not None
@@ -176,6 +182,12 @@ class _Run:
         self.writer = None
 
     COUNTER = "env_steps"  # what the budget counts: summary.json, metrics.jsonl and TensorBoard steps
+
+    def acting(self, env: Any) -> Callable[..., np.ndarray]:
+        """The team's ``act(obs, explore, env_steps)`` on ``env`` (a seated team's scripted members read the
+        state of the env they play on)."""
+        acting = getattr(self.learner, "acting", None)
+        return acting(env) if acting is not None else self.learner.act
 
     def count(self) -> int:
         """Progress so far, in the budget's unit."""
@@ -278,7 +290,8 @@ class _Run:
         self.evals += 1
         every = self.cfg.log.gif_every
         gif = every > 0 and ((self.evals - 1) % every == 0 or final)
-        ev = evaluate(self.eval_env, lambda o: self.learner.act(o, explore=False),
+        act = self.acting(self.eval_env)
+        ev = evaluate(self.eval_env, lambda o: act(o, explore=False),
                       self.cfg.train.eval_episodes, self.cfg.train.seed + EVAL_SEED_OFFSET, gif=gif)
         self.last_eval = _result(ev)
         self.log_eval(ev)
@@ -338,7 +351,7 @@ class _Run:
             if sigint.requested:
                 raise KeyboardInterrupt
             self._between_steps = False
-            actions = self.learner.act(col.obs, explore=True, env_steps=self.env_steps)
+            actions = self._train_act(col.obs, explore=True, env_steps=self.env_steps)
             st = col.step(actions)
             learned = self.shaper(st.rewards, st.end)
             if self.shaper.active:
@@ -396,11 +409,15 @@ class _Run:
         if self.last_eval is None:
             self.evaluate(final=True)
         for i, agent in enumerate(self.spec.agents):
-            self.learner.agent_policy(i).save(self.out / "policies" / f"{agent}.pt")
+            policy = self.learner.agent_policy(i)
+            if policy is not None:  # a seated member (scripted, random) has no policy file
+                policy.save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
                    "random": self.baselines["random"], "baselines": self.baselines,
                    "replay_ratio": self.replay_ratio(), "replay_ratio_measured": self.measured_replay_ratio(),
                    "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
+        if self.cfg.seats:
+            summary["groups"] = self.learner.group_results(self.last_eval["returns"])
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:
             from marl_core.tb import add_hparams
@@ -560,6 +577,8 @@ def run(cfg: RunConfig, out: str | Path,
     r = _make_run(cfg, out, progress)  # builds envs and learner first: a bad env fails before any file
     out.mkdir(parents=True, exist_ok=True)
     (out / "checkpoints").mkdir(exist_ok=True)
+    if cfg.seats:
+        r.learner.keep_policies(out)
     dump_config(cfg, out / "config.yaml")
     r.open_logs(purge_step=None)
     r.measure_baselines()
@@ -631,7 +650,8 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
     r.env.close()
     r.eval_env.close()
     with _eval_env(cfg, n, render=gif is not None) as env:
-        ev = evaluate(env, lambda o: r.learner.act(o, explore=False), n, seed, gif=gif is not None)
+        act = r.acting(env)
+        ev = evaluate(env, lambda o: act(o, explore=False), n, seed, gif=gif is not None)
         baselines = measure_baselines(env, measured_teams(cfg), n, seed, _result)
     if gif is not None:
         from envs.render import write_gif

@@ -64,7 +64,8 @@ def test_dump_replaces_an_existing_file(tmp_path):
 
 def test_resolved_dict_has_every_key_and_the_game_params():
     data = config_to_dict(parse_config({"env": {"params": {"num_agents": 3}}}))
-    flat = {f"{section}.{key}" for section, body in data.items() for key in body}
+    flat = {f"{section}.{key}" for section, body in data.items() if body is not None for key in body}
+    flat |= {section for section, body in data.items() if body is None}  # seats: null unless given
     idqn_keys = {row["key"] for row in schema_table() if row["kind"] in (None, "idqn")}
     assert flat == {k for k in idqn_keys if not k.startswith("reward.inequity_aversion.")}  # null by default
     expected = resolve("harvest_v0", envs.game_module("harvest_v0").PARAMS, {"num_agents": 3})
@@ -287,7 +288,7 @@ def test_schema_table_lists_every_key_with_a_description():
               "train": [config_module.TrainConfig], "log": [config_module.LogConfig],
               "reward": [config_module.RewardConfig],
               "reward.inequity_aversion": [config_module.InequityAversion]}
-    fields = {f"{s}.{n}" for s, ms in models.items() for m in ms for n in m.model_fields}
+    fields = {f"{s}.{n}" for s, ms in models.items() for m in ms for n in m.model_fields} | {"seats"}
     assert keys == fields == set(valid_keys())
     assert len(valid_keys()) == len(set(valid_keys()))
 
@@ -301,6 +302,9 @@ def test_schema_table_defaults_are_the_model_defaults():
             continue  # the game fills its own defaults in
         if row["key"].startswith("reward.inequity_aversion."):
             continue  # inside a mapping that is null by default (its defaults: test_rewards.py)
+        if row["key"] == "seats":
+            assert row["default"] is None and by_kind["idqn"]["seats"] is None
+            continue
         section, name = row["key"].split(".")
         assert by_kind[row["kind"] or "idqn"][section][name] == row["default"], row["key"]
 
