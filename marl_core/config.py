@@ -479,8 +479,17 @@ class LOLAConfig(BaseModel):
 
     kind: Literal["lola"] = Field("lola", description="learning algorithm: opponent shaping (LOLA) or, with "
                                   "opponent_shaping false, the naive learner, on two-player matrix games")
-    opponent_shaping: bool = Field(True, description="true: LOLA, each player differentiates through the "
-                                   "other's next step; false: the naive learner (plain policy gradient)")
+    opponent_shaping: bool | list[bool] = Field(True, description="true: LOLA, each player differentiates "
+                                                "through the other's next step; false: the naive learner "
+                                                "(plain policy gradient); [agent_0, agent_1]: one each, e.g. "
+                                                "[true, false] for LOLA against a naive learner")
+
+    @model_validator(mode="after")
+    def _two_players(self) -> LOLAConfig:
+        if isinstance(self.opponent_shaping, list) and len(self.opponent_shaping) != 2:
+            raise _own_error(_not_allowed("learner.opponent_shaping", self.opponent_shaping,
+                                          "true, false or a list of two (one per player)"))
+        return self
     gradient: Literal["exact", "sampled"] = Field("exact", description="exact: the closed-form value of the "
                                                   "infinitely repeated game; sampled: DiCE estimates from "
                                                   "env.num_envs episodes of env.params.max_cycles rounds "

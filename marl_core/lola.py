@@ -279,7 +279,8 @@ class LOLA:
         gen = torch.Generator().manual_seed(seed)
         self.theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * cfg.init_std
         self._rng = np.random.default_rng(seed)
-        self.shaping = (cfg.opponent_shaping, cfg.opponent_shaping)
+        shaping = cfg.opponent_shaping
+        self.shaping = tuple(shaping) if isinstance(shaping, list) else (shaping, shaping)
 
     def probs(self) -> np.ndarray:
         return torch.sigmoid(self.theta).numpy()

@@ -406,7 +406,7 @@ BUNDLED = sorted(CONFIGS.glob("*.yaml"))
 
 # team sizes, from each file's num_agents / N (gymnasium envs are a team of one: marl_core/team_env.py)
 TEAM_SIZE = {"cartpole_idqn": 1, "cleanup_idqn": 3, "cleanup_tiny_idqn": 2, "cleanup_maddpg": 3, "harvest_idqn": 3,
-             "harvest_maddpg": 3, "spread_maddpg": 3}
+             "harvest_maddpg": 3, "spread_maddpg": 3, "harvest_mixed": 3, "ipd_lola": 2, "ipd_naive": 2}
 
 
 def test_every_bundled_config_is_listed():
