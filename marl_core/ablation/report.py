@@ -145,7 +145,8 @@ def _read_yaml(path: Path, problems: list[str]) -> dict[str, Any] | None:
 
 
 def _read_curve(path: Path, problems: list[str]) -> dict[int, dict[str, Any]] | None:
-    """``metrics.jsonl`` as env_steps -> row (a later line for the same step wins); None if absent."""
+    """``metrics.jsonl`` as env_steps (updates for a lola run) -> row (a later line for the same step wins);
+    None if absent."""
     if not path.is_file():
         return None
     out: dict[int, dict[str, Any]] = {}
@@ -160,7 +161,8 @@ def _read_curve(path: Path, problems: list[str]) -> dict[int, dict[str, Any]] | 
             continue
         try:
             row = json.loads(line)
-            step = int(row["env_steps"])
+            # a lola run counts updates (exact gradients play no env steps); every other run env steps
+            step = int(row["updates"]) if isinstance(row, dict) and "updates" in row else int(row["env_steps"])
         except (ValueError, KeyError, TypeError):
             bad += 1  # e.g. a line cut short by a crash
             continue
@@ -1063,7 +1065,7 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
             for i, (a, r) in enumerate(finite.items()):
                 ax.axhline(r, color=colours[a], ls="--", lw=1.0,
                            label="random team (per arm, dashed)" if i == 0 else None)
-    ax.set_xlabel("environment steps")
+    ax.set_xlabel("updates" if summary.get("learners") == ["lola"] else "environment steps")
     ax.set_ylabel(m)
     ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} Student t band",
                  fontsize=10)
