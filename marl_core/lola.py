@@ -199,6 +199,30 @@ class ExactResult:
     history: np.ndarray
 
 
+def _initial_logits(seed: int, init_std: float) -> torch.Tensor:
+    gen = torch.Generator().manual_seed(seed)
+    return torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * init_std
+
+
+def _train(table: np.ndarray, updates: int, seed: int, gamma: float, init_std: float, step) -> ExactResult:
+    """``updates`` calls of ``step(k, theta0, theta1) -> (theta0, theta1)`` from seeded logits; the closed
+    form's reward per round is recorded before each and at the end."""
+    payoffs = joint_payoffs(table)
+    theta = _initial_logits(seed, init_std)
+    t0, t1 = theta[0], theta[1]
+    history = []
+    for k in range(updates):
+        with torch.no_grad():
+            history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
+        t0, t1 = step(k, t0, t1)
+    with torch.no_grad():
+        v = values(t0, t1, payoffs, gamma)
+    history.append(((1 - gamma) * v).numpy())
+    theta = torch.stack([t0, t1])
+    return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
+                       reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
+
+
 def train_exact(table: np.ndarray, shaping: tuple[bool, bool], updates: int, seed: int, gamma: float = 0.96,
                 lr: float = 1.0, lookahead: float = 1.0, init_std: float = 1.0) -> ExactResult:
     """Train two memory-one players with exact gradients.
@@ -210,20 +234,8 @@ def train_exact(table: np.ndarray, shaping: tuple[bool, bool], updates: int, see
         seed: seeds the initial logits, drawn from N(0, init_std^2).
     """
     payoffs = joint_payoffs(table)
-    gen = torch.Generator().manual_seed(seed)
-    theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * init_std
-    t0, t1 = theta[0], theta[1]
-    history = []
-    for _ in range(updates):
-        with torch.no_grad():
-            history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
-        t0, t1 = exact_step(t0, t1, payoffs, gamma, lr, lookahead, shaping)
-    with torch.no_grad():
-        v = values(t0, t1, payoffs, gamma)
-    history.append(((1 - gamma) * v).numpy())
-    theta = torch.stack([t0, t1])
-    return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
-                       reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
+    return _train(table, updates, seed, gamma, init_std,
+                  lambda k, t0, t1: exact_step(t0, t1, payoffs, gamma, lr, lookahead, shaping))
 
 
 def train_sampled(table: np.ndarray, shaping: tuple[bool, bool], updates: int, seed: int, copies: int = 1024,
@@ -236,25 +248,14 @@ def train_sampled(table: np.ndarray, shaping: tuple[bool, bool], updates: int, s
 
     flat = np.asarray(table, dtype=np.float64).reshape(-1).tolist()
     game = MatrixGame(copies, payoffs=flat, max_cycles=rounds, horizon="time_limit")
-    payoffs = joint_payoffs(table)
-    gen = torch.Generator().manual_seed(seed)
-    theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * init_std
     rng = np.random.default_rng(seed)
-    t0, t1 = theta[0], theta[1]
-    history = []
-    for k in range(updates):
-        with torch.no_grad():
-            history.append(((1 - gamma) * values(t0, t1, payoffs, gamma)).numpy())
+
+    def step(k: int, t0: torch.Tensor, t1: torch.Tensor):
         probs = torch.sigmoid(torch.stack([t0, t1])).numpy()
         batch = play(probs, game, rounds, rng, seed=seed * 1_000_003 + k)
-        t0, t1 = shaped_step(lambda a, b, batch=batch: dice_values(a, b, *batch, gamma), t0, t1, lr, lookahead,
-                             shaping)
-    with torch.no_grad():
-        v = values(t0, t1, payoffs, gamma)
-    history.append(((1 - gamma) * v).numpy())
-    theta = torch.stack([t0, t1])
-    return ExactResult(theta=theta.numpy(), probs=torch.sigmoid(theta).numpy(), values=v.numpy(),
-                       reward_per_round=((1 - gamma) * v).numpy(), history=np.stack(history))
+        return shaped_step(lambda a, b: dice_values(a, b, *batch, gamma), t0, t1, lr, lookahead, shaping)
+
+    return _train(table, updates, seed, gamma, init_std, step)
 
 
 # --------------------------------------------------------------------------- the learner of a run
@@ -276,8 +277,7 @@ class LOLA:
                              f"{spec.num_agents} agents and {spec.num_actions} actions")
         self.spec, self.cfg = spec, cfg
         self.payoffs = joint_payoffs(table)
-        gen = torch.Generator().manual_seed(seed)
-        self.theta = torch.randn(2, NUM_STATES, generator=gen, dtype=torch.float64) * cfg.init_std
+        self.theta = _initial_logits(seed, cfg.init_std)
         self._rng = np.random.default_rng(seed)
         shaping = cfg.opponent_shaping
         self.shaping = tuple(shaping) if isinstance(shaping, list) else (shaping, shaping)

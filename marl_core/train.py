@@ -197,15 +197,18 @@ class _Run:
         return self.cfg.train.total_steps
 
     # -- checkpoints
+    def _counters(self) -> dict[str, Any]:
+        return {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
+                "evals": self.evals, "samples": self.samples, "learn_steps": self.learn_steps, "owed": self.owed}
+
+    def _extra_state(self) -> dict[str, Any]:
+        return {"replay_rng": self.replay.rng_state()}
+
     def save_checkpoint(self) -> None:
         atomic_torch_save({
-            "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
-            "counters": {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
-                         "evals": self.evals, "samples": self.samples, "learn_steps": self.learn_steps,
-                         "owed": self.owed},
+            "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg), "counters": self._counters(),
             "baselines": json.dumps(finite(self.baselines)), "last_eval": json.dumps(finite(self.last_eval)),
-            "learner": self.learner.state_dict(), "replay_rng": self.replay.rng_state(),
-            "torch_rng": torch.get_rng_state(),
+            "learner": self.learner.state_dict(), **self._extra_state(), "torch_rng": torch.get_rng_state(),
         }, self.out / "checkpoints" / "last.pt")
 
     def _read_checkpoint(self) -> dict[str, Any]:
@@ -464,14 +467,12 @@ class _LolaRun(_Run):
     def budget(self) -> int:
         return self.cfg.learner.updates
 
-    def save_checkpoint(self) -> None:
-        atomic_torch_save({
-            "format": CHECKPOINT_FORMAT, "config_hash": config_hash(self.cfg),
-            "counters": {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
-                         "evals": self.evals},
-            "baselines": json.dumps(finite(self.baselines)), "last_eval": json.dumps(finite(self.last_eval)),
-            "learner": self.learner.state_dict(), "torch_rng": torch.get_rng_state(),
-        }, self.out / "checkpoints" / "last.pt")
+    def _counters(self) -> dict[str, Any]:
+        return {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
+                "evals": self.evals}
+
+    def _extra_state(self) -> dict[str, Any]:
+        return {}
 
     def load_checkpoint(self) -> None:
         data = self._read_checkpoint()

@@ -29,9 +29,9 @@ TINY_LOLA = {"learner.updates": 5, "learner.eval_every_updates": 5, "train.eval_
              "log.tensorboard": False, "log.progress": False}
 
 
-def test_the_bundled_studies_are_the_six_of_the_readme():
+def test_the_bundled_studies_are_the_seven_of_the_readme():
     assert NAMES == ["cleanup_cures", "learners_cleanup", "learners_harvest", "lola_ipd", "long_commons",
-                     "scarcity_harvest"]
+                     "mixed_harvest", "scarcity_harvest"]
 
 
 @pytest.mark.parametrize("name", NAMES)
