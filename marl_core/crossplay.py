@@ -64,12 +64,20 @@ class Source:
 
 def _parse_sources(items: list[str], members: list[str]) -> list[Source]:
     by_label: dict[str, Source] = {}
+    named: set[str] = set()  # labels given as LABEL=RUN_DIR (only those group runs)
     for item in items:
         label, sep, path = item.partition("=")
         if not sep:
             label, path = Path(item).name or item, item
+            if label in by_label:
+                raise RunDirError(f"crossplay: two sources are named {label!r}; label them apart "
+                                  f"(LABEL=RUN_DIR), or give one label to runs that are seeds of one source")
+        elif label in by_label and label not in named:
+            raise RunDirError(f"crossplay: label {label!r} is also the name of a run given without a label")
         if not label:
             raise RunDirError(f"crossplay: source {item!r} has an empty label; expected LABEL=RUN_DIR or RUN_DIR")
+        if sep:
+            named.add(label)
         by_label.setdefault(label, Source(label)).runs.append(Path(path))
     for m in members:
         if m in by_label:

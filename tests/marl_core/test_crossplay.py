@@ -169,3 +169,13 @@ def test_an_existing_out_directory_is_refused(two_runs, tmp_path):
     with pytest.raises(RunDirError, match="already exists and is not empty"):
         crossplay([str(a)], tmp_path / "cp")
     assert (tmp_path / "cp" / "keep.txt").read_text() == "mine"
+
+
+def test_runs_of_one_name_without_labels_are_refused(two_runs, tmp_path):
+    a, _ = two_runs
+    twin = tmp_path / "other" / a.name
+    twin.parent.mkdir()
+    twin.symlink_to(a, target_is_directory=True)
+    with pytest.raises(RunDirError, match=r"^crossplay: two sources are named 'lola'; label them apart"):
+        crossplay([str(a), str(twin)], tmp_path / "cp")
+    assert not (tmp_path / "cp").exists()
