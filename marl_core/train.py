@@ -157,7 +157,6 @@ class _Run:
             self.learner = SeatedTeam(self.spec, cfg, seed, e.name, out)
         else:
             self.learner = build_learner(self.spec, cfg.learner, seed)
-        self._train_act = self.acting(self.env)
         L = cfg.learner
         state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
         self.keep_state = state_space is not None
@@ -348,13 +347,14 @@ class _Run:
         log_steps = 0
         t0, s0 = time.perf_counter(), self.env_steps
         prioritized = getattr(L, "prioritized", False)
+        act = self.acting(self.env)  # looked up here, so a wrapper set on the learner before train() is used
         if self.progress is not None:  # the start: steps/s and elapsed time count from here
             self.progress(self.env_steps, T.total_steps, self.last_eval)
         while self.env_steps < T.total_steps:
             if sigint.requested:
                 raise KeyboardInterrupt
             self._between_steps = False
-            actions = self._train_act(col.obs, explore=True, env_steps=self.env_steps)
+            actions = act(col.obs, explore=True, env_steps=self.env_steps)
             st = col.step(actions)
             learned = self.shaper(st.rewards, st.end)
             if self.shaper.active:
