@@ -34,8 +34,10 @@ from dataclasses import dataclass
 import numpy as np
 import torch
 
+from marl_core.policy import state_index
+
 __all__ = ["NUM_STATES", "values", "values_from_probs", "shaped_step", "exact_step", "dice_values", "play",
-           "train_exact", "ExactResult", "joint_payoffs", "state_index"]
+           "play_episodes", "sample", "train_exact", "ExactResult", "joint_payoffs", "state_index"]
 
 NUM_STATES = 5  # first round + four previous joint actions
 
@@ -152,32 +154,33 @@ def dice_values(theta0: torch.Tensor, theta1: torch.Tensor, states: np.ndarray, 
     return weighted + correction
 
 
-def play(probs: np.ndarray, game, rounds: int, rng: np.random.Generator, seed: int):
-    """Play ``game``'s copies (``matrix_v0``'s batched engine, two players, two actions) for ``rounds``
-    rounds with memory-one policies ``probs`` ``(2, 5)``; returns ``states (B, T)``, ``actions (B, T, 2)``
-    and ``rewards (B, T, 2)``."""
-    obs, _ = game.reset(seed=seed)
-    B = game.num_envs
+def sample(probs: np.ndarray, obs: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Both players' actions ``(B, 2)`` from memory-one policies ``probs`` ``(2, 5)`` (probability of
+    action 0 per state) on ``matrix_v0`` observations ``(B, 2, 4)``."""
+    coop = probs[np.arange(2)[None, :], state_index(obs)]         # (B, 2)
+    return (rng.random(coop.shape) >= coop).astype(np.int64)     # 0 with probability coop
+
+
+def play_episodes(act, step, obs: np.ndarray, rounds: int):
+    """``rounds`` rounds on every copy from ``obs`` ``(B, 2, 4)``: ``act(obs) -> (B, 2)`` actions,
+    ``step(actions) -> (obs, rewards)``. Returns ``states (B, T)`` (the same for both players),
+    ``actions (B, T, 2)`` and ``rewards (B, T, 2)``."""
+    B = len(obs)
     states = np.zeros((B, rounds), np.int64)
     actions = np.zeros((B, rounds, 2), np.int64)
     rewards = np.zeros((B, rounds, 2), np.float64)
     for t in range(rounds):
-        st = state_index(obs)[:, 0]                                # the same for both players
-        coop = probs[:, st].T                                      # (B, 2)
-        act = (rng.random((B, 2)) >= coop).astype(np.int64)         # 0 with probability coop
-        obs, rew, *_ = game.step(act)
-        states[:, t], actions[:, t], rewards[:, t] = st, act, rew
+        states[:, t] = state_index(obs)[:, 0]
+        actions[:, t] = act(obs)
+        obs, rewards[:, t] = step(actions[:, t])
     return states, actions, rewards
 
 
-def state_index(obs: np.ndarray) -> np.ndarray:
-    """``matrix_v0`` observations ``(..., 4)`` (the previous joint action, one-hot per agent) -> the
-    policy's state index ``(...,)``: 0 in the first round (all zeros), else ``1 + 2 * a0 + a1``."""
-    obs = np.asarray(obs)
-    first = obs.sum(axis=-1) == 0
-    a0 = obs[..., 1].astype(np.int64)
-    a1 = obs[..., 3].astype(np.int64)
-    return np.where(first, 0, 1 + 2 * a0 + a1)
+def play(probs: np.ndarray, game, rounds: int, rng: np.random.Generator, seed: int):
+    """:func:`play_episodes` on ``game`` (``matrix_v0``'s batched engine, two players, two actions) reset
+    with ``seed``, the players sampling from memory-one policies ``probs`` ``(2, 5)``."""
+    obs, _ = game.reset(seed=seed)
+    return play_episodes(lambda o: sample(probs, o, rng), lambda a: game.step(a)[:2], obs, rounds)
 
 
 @dataclass
@@ -286,9 +289,7 @@ class LOLA:
         return torch.sigmoid(self.theta).numpy()
 
     def act(self, obs: np.ndarray, explore: bool = True, env_steps: int | None = None) -> np.ndarray:
-        s = state_index(np.asarray(obs))                     # (B, 2)
-        coop = self.probs()[np.arange(2)[None, :], s]         # (B, 2)
-        return (self._rng.random(coop.shape) >= coop).astype(np.int64)
+        return sample(self.probs(), np.asarray(obs), self._rng)
 
     def closed_form(self) -> dict[str, list[float]]:
         """The current policies' discounted values and ``(1 - gamma) * values`` per player."""

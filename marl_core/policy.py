@@ -19,7 +19,7 @@ from marl_core.files import atomic_write
 from marl_core.nets import AgentNet, build_net
 
 __all__ = ["AgentPolicy", "MemoryOnePolicy", "POLICY_FORMAT", "atomic_torch_save", "safe_torch_load",
-           "load_policy"]
+           "load_policy", "state_index"]
 
 POLICY_FORMAT = 1
 
@@ -106,6 +106,15 @@ class AgentPolicy:
 MEMORY_ONE = "memory_one"
 
 
+def state_index(obs: np.ndarray) -> np.ndarray:
+    """``matrix_v0`` observations ``(..., 4)`` of a two-player, two-action game (the previous joint action,
+    one-hot per agent, agent_0's first) -> a memory-one policy's state ``(...,)``: 0 in the first round
+    (all zeros), else ``1 + 2 * a0 + a1``."""
+    obs = np.asarray(obs)
+    first = obs.sum(axis=-1) == 0
+    return np.where(first, 0, 1 + 2 * obs[..., 1].astype(np.int64) + obs[..., 3].astype(np.int64))
+
+
 class MemoryOnePolicy:
     """One player's memory-one policy on a two-player, two-action ``matrix_v0`` game (``learner.kind:
     lola``): five logits, the probability of action 0 in the first round and after each previous joint
@@ -143,9 +152,7 @@ class MemoryOnePolicy:
                              f"expected (4,) (two players, two actions)")
         if self.seat != self.agent_index:
             obs = obs[:, [2, 3, 0, 1]]
-        first = obs.sum(axis=-1) == 0
-        state = np.where(first, 0, 1 + 2 * obs[:, 1].astype(np.int64) + obs[:, 3].astype(np.int64))
-        return (self._rng.random(len(obs)) >= self.probs[state]).astype(np.int64)
+        return (self._rng.random(len(obs)) >= self.probs[state_index(obs)]).astype(np.int64)
 
     def save(self, path: str | Path) -> Path:
         return atomic_torch_save({"format": POLICY_FORMAT, "kind": MEMORY_ONE, "agent": self.agent,

@@ -485,20 +485,18 @@ class _LolaRun(_Run):
 
     def _play(self, col: Collector) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """One whole episode on every copy: states (B, T), actions (B, T, 2), rewards (B, T, 2)."""
-        from marl_core.lola import state_index
+        from marl_core.lola import play_episodes
 
-        B, T = self.cfg.env.num_envs, self.rounds
-        states = np.zeros((B, T), np.int64)
-        actions = np.zeros((B, T, 2), np.int64)
-        rewards = np.zeros((B, T, 2), np.float64)
-        for t in range(T):
-            states[:, t] = state_index(col.obs)[:, 0]
-            actions[:, t] = self.learner.act(col.obs)
-            rewards[:, t] = col.step(actions[:, t]).rewards
-        self.env_steps += B * T
-        self.vec_steps += T
+        def step(actions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            rewards = col.step(actions).rewards
+            return col.obs, rewards
+
+        batch = play_episodes(self.learner.act, step, col.obs, self.rounds)
+        B = self.cfg.env.num_envs
+        self.env_steps += B * self.rounds
+        self.vec_steps += self.rounds
         self.episodes += B
-        return states, actions, rewards
+        return batch
 
     def _loop(self, sigint: _DeferSigint) -> None:
         L, T = self.cfg.learner, self.cfg.train

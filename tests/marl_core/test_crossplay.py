@@ -2,7 +2,7 @@
 
 The numbers are checked against an exact computation outside the code under test: for memory-one players
 in a repeated matrix game, the expected return over T rounds follows from the joint-action distribution
-pushed forward round by round (a Markov chain; hand algebra, no source needed).
+pushed forward round by round (a Markov chain; common practice (no source): textbook algebra).
 """
 
 from __future__ import annotations
