@@ -15,7 +15,7 @@ Layout, with every default of the ``idqn`` learner on ``harvest_v0``::
         regrow_table: [0.0, 0.01, 0.01, 0.05, 0.05, 0.1]
       num_envs: 8
     learner:
-      kind: idqn                # idqn | maddpg | lola; each kind has its own keys and defaults
+      kind: idqn                # idqn | maddpg | lola | ppo; each kind has its own keys and defaults
       share_parameters: false
       gamma: 0.99
       lr: 5.0e-4
@@ -111,7 +111,7 @@ from envs.params import nearest, resolve
 from marl_core.errors import ConfigError
 from marl_core.files import atomic_write
 
-__all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "TrainConfig", "LogConfig",
+__all__ = ["RunConfig", "EnvConfig", "IDQNConfig", "MADDPGConfig", "PPOConfig", "TrainConfig", "LogConfig",
            "RewardConfig", "InequityAversion", "load_config", "load_stored_config", "parse_config",
            "apply_overrides", "config_to_dict", "dump_config", "schema_table", "valid_keys", "config_hash"]
 
@@ -304,7 +304,7 @@ def _end_not_above_start(cfg: BaseModel, schedule: str) -> None:
 
 # the stride of every conv layer when learner.conv_strides is left out, per learner kind (None: the first
 # release's 1 then 2), chosen by learning curves (scripts/compare_encoders.py; README, "Training")
-DEFAULT_STRIDE: dict[str, int | None] = {"idqn": 2, "maddpg": None}
+DEFAULT_STRIDE: dict[str, int | None] = {"idqn": 2, "maddpg": None, "ppo": 2}
 
 
 class _LearnerBase(BaseModel):
@@ -468,7 +468,7 @@ class MADDPGConfig(_LearnerBase):
 
 
 class LOLAConfig(BaseModel):
-    """Opponent shaping on two-player iterated matrix games: memory-one policies (marl_core/lola.py).
+    """Opponent shaping on two-player iterated matrix games: memory-one policies (marl_core/learners/lola.py).
 
     It learns from the game's table (exact) or from whole episodes played on the env's copies (sampled), so
     it has no replay: a run is ``updates`` simultaneous updates of both players, and ``train.total_steps``,
@@ -507,7 +507,83 @@ class LOLAConfig(BaseModel):
     torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process")
 
 
-LEARNERS: dict[str, type[BaseModel]] = {"idqn": IDQNConfig, "maddpg": MADDPGConfig, "lola": LOLAConfig}
+class PPOConfig(BaseModel):
+    """On-policy actor-critic (PPO's clipped objective with GAE) with a local, central or joint-action critic
+    (marl_core/learners/ppo.py). It learns from rollouts, not a replay: each update collects
+    ``rollout_steps`` vector steps from ``env.num_envs`` copies, then makes ``epochs`` passes over
+    ``minibatches`` minibatches of them."""
+
+    model_config = _STRICT
+
+    kind: Literal["ppo"] = Field("ppo", description="learning algorithm: on-policy actor-critic (clipped "
+                                 "surrogate, GAE) with a local, central or joint-action critic")
+    critic: Literal["local", "central", "joint_action"] = Field(
+        "central", description="what the critic sees: local = each agent's own observation (independent "
+        "learners); central = one team network over every observation or the state, a value per agent; "
+        "joint_action = central plus the other agents' actions, with a counterfactual advantage per agent")
+    critic_input: Literal["auto", "state", "observations"] = Field(
+        "auto", description="central and joint_action critics: observations = every agent's observation "
+        "stacked; state = the env's state(); auto = observations (as for maddpg)")
+    share_parameters: bool = Field(False, description="one actor (and one local critic) for all agents with "
+                                   "an agent-id one-hot input (false: one per agent)")
+    # gamma 0.99, lambda 0.95, clip 0.2, entropy 0.01: common PPO settings (docs/sources.md, "PPO", "GAE")
+    gamma: float = _gamma(0.99)
+    gae_lambda: float = Field(0.95, ge=0.0, le=1.0, description="GAE's lambda: 0 = one-step TD advantages, "
+                              "1 = Monte-Carlo returns minus the value")
+    lr: float = _lr(5e-4, "actors")
+    critic_lr: float = _lr(5e-4, "critic")
+    lr_end: float | None = Field(None, gt=0.0, description="learning rate reached at the end of a linear "
+                                 "decay over lr_decay_steps env steps; both rates are scaled by the same "
+                                 "factor (null: constant)")
+    lr_decay_steps: _PositiveInt = Field(1_000_000, description="env steps of the linear learning-rate decay "
+                                         "(used only with lr_end)")
+    rollout_steps: _PositiveInt = Field(32, description="vector steps collected from env.num_envs copies "
+                                        "per update")
+    epochs: _PositiveInt = Field(2, description="passes over each rollout")
+    minibatches: _PositiveInt = Field(2, description="minibatches per pass (each holds rollout_steps * "
+                                      "num_envs / minibatches joint steps, every agent's part)")
+    clip: float = Field(0.2, gt=0.0, description="clip range of the probability ratio")
+    entropy_coef: float = Field(0.01, ge=0.0, description="weight of the entropy bonus in the actor's loss")
+    normalize_advantages: bool = Field(True, description="advantages scaled to mean 0, std 1 per minibatch")
+    grad_clip: float | None = Field(0.5, gt=0.0, description="largest gradient norm per update of each "
+                                    "actor (the shared one under parameter sharing) and each critic network "
+                                    "(null: no clipping)")
+    hidden: _PositiveInt = Field(128, description="width of the MLP layers")
+    conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
+                                             description="output channels of each conv layer of the "
+                                             "grid-window encoders (actors and critic)")
+    conv_strides: list[_PositiveInt] | None = Field(None, min_length=1, description="stride of each conv "
+                                                    "layer; left out: 2 for every layer; null: 1 for the "
+                                                    "first layer, 2 for the others")
+    pack_rollout: bool = Field(True, description="keep observations (and states) of 0s and 1s bit-packed "
+                               "in the rollout, unpacked per minibatch")
+    eval_policy: Literal["sample", "greedy"] = Field(
+        "sample", description="how the actors act at evaluation and in saved policies: sample from the "
+        "policy (what was learned) or take its most likely action")
+    torch_threads: _PositiveInt = Field(1, description="torch intra-op threads per process")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _default_strides(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "conv_strides" not in data:
+            channels = data.get("conv_channels", [16, 32])
+            if isinstance(channels, list) and channels:
+                data = {**data, "conv_strides": [DEFAULT_STRIDE["ppo"]] * len(channels)}
+        return data
+
+    @model_validator(mode="after")
+    def _one_stride_per_conv_layer(self) -> PPOConfig:
+        if self.conv_strides is not None and len(self.conv_strides) != len(self.conv_channels):
+            raise _own_error(_not_allowed("learner.conv_strides", self.conv_strides,
+                                          f"one stride per conv layer: {len(self.conv_channels)} "
+                                          f"(learner.conv_channels = {self.conv_channels})"))
+        if self.lr_end is not None and self.lr_end > self.lr:
+            raise _own_error(_not_allowed("learner.lr_end", self.lr_end, f"a number <= learner.lr ({self.lr!r})"))
+        return self
+
+
+LEARNERS: dict[str, type[BaseModel]] = {"idqn": IDQNConfig, "maddpg": MADDPGConfig, "lola": LOLAConfig,
+                                        "ppo": PPOConfig}
 
 
 # ------------------------------------------------------------------------------------- train and log
@@ -656,7 +732,8 @@ class RunConfig(BaseModel):
     model_config = _STRICT
 
     env: EnvConfig = Field(default_factory=EnvConfig, description="the env")
-    learner: IDQNConfig | MADDPGConfig | LOLAConfig = Field(default_factory=IDQNConfig, discriminator="kind",
+    learner: IDQNConfig | MADDPGConfig | LOLAConfig | PPOConfig = Field(default_factory=IDQNConfig,
+                                                                        discriminator="kind",
                                                             description="the learner; 'kind' picks its keys")
     train: TrainConfig = Field(default_factory=TrainConfig, description="the training schedule")
     log: LogConfig = Field(default_factory=LogConfig, description="what the run writes")
@@ -681,6 +758,14 @@ class RunConfig(BaseModel):
             data["seats"] = _fill_seat_replay_keys(seats, data.get("learner") or {"kind": "idqn"})
         return data
 
+
+    @model_validator(mode="after")
+    def _ppo_fits(self) -> RunConfig:
+        """A ppo learner trains the whole team from rollouts; seated teams share one replay."""
+        if self.learner.kind == "ppo" and self.seats:
+            raise _own_error("the seats section is not allowed with learner.kind = 'ppo' yet: seated teams "
+                             "share one replay; leave seats out")
+        return self
 
     @model_validator(mode="after")
     def _lola_fits(self) -> RunConfig:
@@ -808,7 +893,7 @@ def _default(model: type[BaseModel], name: str) -> Any:
     if info.is_required():
         return None  # e.g. reward.inequity_aversion.alpha: required once the mapping is given
     stride = DEFAULT_STRIDE.get(model.model_fields["kind"].default) if "kind" in model.model_fields else None
-    if issubclass(model, _LearnerBase) and name == "conv_strides" and stride is not None:  # filled when left out
+    if name == "conv_strides" and stride is not None:  # filled when left out
         return [stride] * len(_default(model, "conv_channels"))
     return info.default_factory() if info.default_factory is not None else info.default
 
@@ -840,7 +925,9 @@ def schema_table() -> list[dict[str, Any]]:
         rows.append({"key": "learner.kind", "type": "str", "default": "idqn",
                      "bounds": "one of " + ", ".join(repr(k) for k in kinds),
                      "meaning": "learning algorithm: independent DQN (idqn), a MADDPG-style centralised "
-                                "critic (maddpg) or opponent shaping on matrix games (lola)", "kind": None})
+                                "critic (maddpg), opponent shaping on matrix games (lola) or an on-policy "
+                                "actor-critic with a local, central or joint-action critic (ppo)",
+                     "kind": None})
         names = [n for n in _LearnerBase.model_fields if n != "kind"]
         names += [n for cls in LEARNERS.values() for n in cls.model_fields if n not in names and n != "kind"]
         for name in names:

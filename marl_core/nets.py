@@ -152,3 +152,4 @@ class AgentNets(nn.Module):
 
     def extra_repr(self) -> str:
         return f"num_agents={self.num_agents}, share={self.share}"
+

@@ -45,16 +45,20 @@ def safe_torch_load(path: str | Path, what: str) -> dict[str, Any]:
 
 
 class AgentPolicy:
-    """A single agent's greedy policy from local observations.
+    """A single agent's policy from local observations: greedy (the most likely action, or the largest Q
+    value), or, for an actor saved with ``sample``, a draw from the softmax of its logits (its own
+    generator, seeded with ``seed``).
 
     Shape:
         act: obs (K, *obs_shape) -> actions (K,) int64
     """
 
     def __init__(self, net: AgentNet, description: dict[str, Any], kind: str, agent: str,
-                 agent_index: int | None, obs_space: dict[str, Any]):
+                 agent_index: int | None, obs_space: dict[str, Any], sample: bool = False, seed: int = 0):
         self.net, self.description, self.kind, self.agent = net, description, kind, agent
         self.agent_index, self.obs_space = agent_index, obs_space
+        self.sample = sample  # an actor that acts by drawing from its softmax (ppo's eval_policy: sample)
+        self._rng = np.random.default_rng(seed)
 
     @torch.no_grad()
     def scores(self, obs: np.ndarray | torch.Tensor) -> torch.Tensor:
@@ -79,12 +83,15 @@ class AgentPolicy:
         if tuple(obs.shape[1:]) != expect:
             raise ValueError(f"policy of {self.agent}: observations have shape {tuple(obs.shape[1:])}; "
                              f"expected {expect}")
-        return self.scores(obs).argmax(dim=1).numpy()
+        scores = self.scores(obs)
+        if self.sample:  # the Gumbel-max trick: one draw from softmax(scores) per row
+            return (scores.numpy().astype(np.float64) + self._rng.gumbel(size=scores.shape)).argmax(axis=1)
+        return scores.argmax(dim=1).numpy()
 
     def save(self, path: str | Path) -> Path:
         return atomic_torch_save({
             "format": POLICY_FORMAT, "kind": self.kind, "agent": self.agent, "agent_index": self.agent_index,
-            "net": self.description, "obs_space": self.obs_space,
+            "net": self.description, "obs_space": self.obs_space, "sample": self.sample,
             "weights": {k: v.detach().clone() for k, v in self.net.state_dict().items()},
         }, path)
 
@@ -100,7 +107,8 @@ class AgentPolicy:
         net = build_net(data["net"])
         net.load_state_dict(data["weights"])
         net.eval()
-        return cls(net, data["net"], data["kind"], data["agent"], data["agent_index"], data["obs_space"])
+        return cls(net, data["net"], data["kind"], data["agent"], data["agent_index"], data["obs_space"],
+                   sample=bool(data.get("sample", False)))  # absent from files saved before it: greedy
 
 
 MEMORY_ONE = "memory_one"

@@ -67,7 +67,7 @@ from marl_core.errors import CheckpointError, ConfigError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
 from marl_core.hints import command
 from marl_core.learners import build_learner
-from marl_core.maddpg import resolve_critic_input
+from marl_core.learners.maddpg import resolve_critic_input
 from marl_core.policy import atomic_torch_save, safe_torch_load
 from marl_core.replay import Replay
 from marl_core.rewards import RewardShaper
@@ -146,8 +146,7 @@ class _Run:
         seed = cfg.train.seed
         e = cfg.env
         # only a critic that reads the state needs state() on every step (``auto`` may mean either)
-        wants_state = cfg.learner.kind == "maddpg" and resolve_critic_input(cfg.learner.critic_input,
-                                                                            has_state=True) == "state"
+        wants_state = _reads_state(cfg.learner)
         self.env = make_team_env(e.name, e.params, e.num_envs, seed, with_state=wants_state)
         self.spec = self.env.spec
         self.eval_env = _eval_env(cfg, cfg.train.eval_episodes, render=cfg.log.gif_every > 0)
@@ -157,18 +156,9 @@ class _Run:
             self.learner = SeatedTeam(self.spec, cfg, seed, e.name, out)
         else:
             self.learner = build_learner(self.spec, cfg.learner, seed)
-        L = cfg.learner
         state_space = self.spec.state_space if getattr(self.learner, "uses_state", False) else None
         self.keep_state = state_space is not None
-        self.replay = Replay(
-            capacity=L.replay_size, num_envs=e.num_envs, num_agents=self.spec.num_agents,
-            obs_shape=self.spec.obs_shape, obs_dtype=self.spec.obs_dtype, num_actions=self.spec.num_actions,
-            state_shape=None if state_space is None else tuple(state_space.shape),
-            state_dtype=None if state_space is None else state_space.dtype,
-            n_step=getattr(L, "n_step", 1), gamma=L.gamma, prioritized=getattr(L, "prioritized", False),
-            alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed,
-            pack_bits=L.pack_replay and _zero_one(self.spec.obs_space) and (
-                state_space is None or _zero_one(state_space)))
+        self._make_store(state_space)
         # what the agents learn from (the metrics keep the env's rewards); checked before any file is written
         self.shaper = RewardShaper(cfg.reward, e.num_envs, self.spec.num_agents)
         self.env_steps = self.vec_steps = self.episodes = self.evals = 0
@@ -179,6 +169,19 @@ class _Run:
         self.last_eval: dict[str, Any] | None = None
         self.progress = progress
         self.writer = None
+
+    def _make_store(self, state_space: Any) -> None:
+        """The replay the learner samples from."""
+        L, e, seed = self.cfg.learner, self.cfg.env, self.cfg.train.seed
+        self.replay = Replay(
+            capacity=L.replay_size, num_envs=e.num_envs, num_agents=self.spec.num_agents,
+            obs_shape=self.spec.obs_shape, obs_dtype=self.spec.obs_dtype, num_actions=self.spec.num_actions,
+            state_shape=None if state_space is None else tuple(state_space.shape),
+            state_dtype=None if state_space is None else state_space.dtype,
+            n_step=getattr(L, "n_step", 1), gamma=L.gamma, prioritized=getattr(L, "prioritized", False),
+            alpha=getattr(L, "priority_alpha", 0.6), eps=getattr(L, "priority_eps", 1e-6), seed=seed,
+            pack_bits=L.pack_replay and _zero_one(self.spec.obs_space) and (
+                state_space is None or _zero_one(state_space)))
 
     COUNTER = "env_steps"  # what the budget counts: summary.json, metrics.jsonl and TensorBoard steps
 
@@ -231,8 +234,15 @@ class _Run:
         self.owed = float(c.get("owed", 0.0))
         self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
         self.learner.load_state_dict(data["learner"])
-        self.replay.set_rng_state(data["replay_rng"])
+        self._load_extra_state(data)
         torch.set_rng_state(data["torch_rng"])
+
+    def _load_extra_state(self, data: dict[str, Any]) -> None:
+        self.replay.set_rng_state(data["replay_rng"])
+
+    def _data_summary(self) -> dict[str, Any]:
+        """What summary.json says of the data the learner learned from."""
+        return {"replay_ratio": self.replay_ratio(), "replay_ratio_measured": self.measured_replay_ratio()}
 
     def replay_ratio(self) -> float:
         """The configured replay ratio: samples drawn per env step collected, once updates run."""
@@ -416,8 +426,7 @@ class _Run:
             if policy is not None:  # a seated member (scripted, random) has no policy file
                 policy.save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
-                   "random": self.baselines["random"], "baselines": self.baselines,
-                   "replay_ratio": self.replay_ratio(), "replay_ratio_measured": self.measured_replay_ratio(),
+                   "random": self.baselines["random"], "baselines": self.baselines, **self._data_summary(),
                    "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
         if self.cfg.seats:
             summary["groups"] = self.learner.group_results(self.last_eval["returns"])
@@ -432,8 +441,44 @@ class _Run:
         return summary
 
 
+class _OnPolicyRun(_Run):
+    """A run of an on-policy learner (``learner.kind: ppo``): a rollout buffer instead of a replay, and the
+    loop of :mod:`marl_core.onpolicy`. Checkpoints are written between rollouts, or at an interrupt (the
+    rollout in progress is then dropped: a resume starts a new one)."""
+
+    def _make_store(self, state_space: Any) -> None:
+        from marl_core.buffer import RolloutBuffer
+
+        L, e = self.cfg.learner, self.cfg.env
+        self.buffer = RolloutBuffer(
+            L.rollout_steps, e.num_envs, self.spec.num_agents, self.spec.obs_shape, self.spec.obs_dtype,
+            state_shape=None if state_space is None else tuple(state_space.shape),
+            state_dtype=None if state_space is None else state_space.dtype,
+            pack=L.pack_rollout and _zero_one(self.spec.obs_space) and (
+                state_space is None or _zero_one(state_space)))
+
+    def _extra_state(self) -> dict[str, Any]:
+        return {}
+
+    def _load_extra_state(self, data: dict[str, Any]) -> None:
+        pass
+
+    def _data_summary(self) -> dict[str, Any]:
+        L = self.cfg.learner
+        return {"updates": self.learner.updates,
+                "rollout_env_steps": L.rollout_steps * self.cfg.env.num_envs}
+
+    def measured_replay_ratio(self) -> None:
+        return None
+
+    def _loop(self, sigint: _DeferSigint) -> None:
+        from marl_core.onpolicy import run_loop
+
+        run_loop(self, sigint)
+
+
 class _LolaRun(_Run):
-    """A ``learner.kind: lola`` run (marl_core/lola.py): ``learner.updates`` simultaneous updates of two
+    """A ``learner.kind: lola`` run (marl_core/learners/lola.py): ``learner.updates`` simultaneous updates of two
     memory-one players, no replay. The budget counts updates; ``env_steps`` counts the rounds played for
     sampled gradients (0 for exact ones: they learn from the game's table)."""
 
@@ -441,7 +486,7 @@ class _LolaRun(_Run):
 
     def __init__(self, cfg: RunConfig, out: Path, progress: Callable | None):
         from envs.matrix_v0 import build_table, resolve_params
-        from marl_core.lola import LOLA
+        from marl_core.learners.lola import LOLA
 
         self.cfg, self.out = cfg, out
         torch.set_num_threads(cfg.learner.torch_threads)
@@ -485,7 +530,7 @@ class _LolaRun(_Run):
 
     def _play(self, col: Collector) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """One whole episode on every copy: states (B, T), actions (B, T, 2), rewards (B, T, 2)."""
-        from marl_core.lola import play_episodes
+        from marl_core.learners.lola import play_episodes
 
         def step(actions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
             rewards = col.step(actions).rewards
@@ -545,7 +590,15 @@ class _LolaRun(_Run):
 
 
 def _make_run(cfg: RunConfig, out: Path, progress: Callable | None) -> _Run:
-    return (_LolaRun if cfg.learner.kind == "lola" else _Run)(cfg, out, progress)
+    kind = cfg.learner.kind
+    return (_LolaRun if kind == "lola" else _OnPolicyRun if kind == "ppo" else _Run)(cfg, out, progress)
+
+
+def _reads_state(learner: Any) -> bool:
+    """Whether the learner's critic reads the env's state() (our games then compute it every step)."""
+    if learner.kind == "maddpg" or (learner.kind == "ppo" and learner.critic != "local"):
+        return resolve_critic_input(learner.critic_input, has_state=True) == "state"
+    return False
 
 
 def _zero_one(space: Any) -> bool:

@@ -14,7 +14,7 @@ evaluation seeds) is given for scale. Efficiency is the team's reward per step (
 
 ``state`` is the env's ``state()``: for our grid games, by default (``state_layout: per_agent``) the map
 channels and a position, ahead and frozen plane per agent. ``observations`` stacks the N egocentric windows
-as channels. The result set the ``auto`` default of ``learner.critic_input`` (``marl_core/maddpg.py``).
+as channels. The result set the ``auto`` default of ``learner.critic_input`` (``marl_core/learners/maddpg.py``).
 This is a script, not a test: it takes minutes per run.
 """
 

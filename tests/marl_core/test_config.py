@@ -197,8 +197,8 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
     ({"log": {"gif_every": -1}}, [], r"^log\.gif_every = -1 is not allowed"),
     ({"learner": {"eps_start": 0.1, "eps_end": 0.2}}, [],
      r"^learner\.eps_end = 0\.2 is not allowed: expected a number <= learner\.eps_start \(0\.1\)$"),
-    ({"learner": {"kind": "ppo"}}, [],
-     r"^learner\.kind = 'ppo' is not allowed: expected one of 'idqn', 'maddpg', 'lola'$"),
+    ({"learner": {"kind": "a2c"}}, [],
+     r"^learner\.kind = 'a2c' is not allowed: expected one of 'idqn', 'maddpg', 'lola', 'ppo'$"),
     ({"learner": {"kind": "maddpg", "double": False}}, [],
      r"^learner\.double is an idqn key; learner\.kind is 'maddpg'$"),
     ({"learner": {"tau": 0.1}}, [], r"^learner\.tau is a maddpg key; learner\.kind is 'idqn'$"),
@@ -284,7 +284,8 @@ def test_schema_table_lists_every_key_with_a_description():
         assert row["meaning"] and "\n" not in row["meaning"], row["key"]
         assert row["type"], row["key"]
     keys = {row["key"] for row in rows}
-    models = {"env": [config_module.EnvConfig], "learner": [IDQNConfig, MADDPGConfig, config_module.LOLAConfig],
+    models = {"env": [config_module.EnvConfig], "learner": [IDQNConfig, MADDPGConfig, config_module.LOLAConfig,
+                                                               config_module.PPOConfig],
               "train": [config_module.TrainConfig], "log": [config_module.LogConfig],
               "reward": [config_module.RewardConfig],
               "reward.inequity_aversion": [config_module.InequityAversion]}
@@ -296,7 +297,8 @@ def test_schema_table_lists_every_key_with_a_description():
 def test_schema_table_defaults_are_the_model_defaults():
     by_kind = {"idqn": config_to_dict(parse_config({})),
                "maddpg": config_to_dict(parse_config({"learner": {"kind": "maddpg"}})),
-               "lola": config_to_dict(parse_config({"env": {"name": "matrix_v0"}, "learner": {"kind": "lola"}}))}
+               "lola": config_to_dict(parse_config({"env": {"name": "matrix_v0"}, "learner": {"kind": "lola"}})),
+               "ppo": config_to_dict(parse_config({"learner": {"kind": "ppo"}}))}
     for row in schema_table():
         if row["key"] == "env.params":
             continue  # the game fills its own defaults in

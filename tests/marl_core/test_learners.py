@@ -1,4 +1,4 @@
-"""Learners (``marl_core.idqn``, ``marl_core.maddpg``) built from a TeamSpec and trained by the real trainer.
+"""Learners (``marl_core.learners.idqn``, ``marl_core.learners.maddpg``) built from a TeamSpec and trained by the real trainer.
 
 Every learner x parameter-sharing x critic combination trains a few hundred env steps on harvest and on
 cleanup through ``marl_core.train.run``; the run directory is then read back the way a user would: the
@@ -20,7 +20,7 @@ from envs.metrics import METRIC_NAMES
 from marl_core.config import config_to_dict, parse_config
 from marl_core.errors import CheckpointError, ConfigError
 from marl_core.learners import build_learner
-from marl_core.maddpg import AUTO_CRITIC_INPUT, critic_input_shape, resolve_critic_input
+from marl_core.learners.maddpg import AUTO_CRITIC_INPUT, critic_input_shape, resolve_critic_input
 from marl_core.nets import AgentNet
 from marl_core.policy import AgentPolicy
 from marl_core.spec import TeamSpec
@@ -440,7 +440,7 @@ def test_shared_state_critic_cannot_tell_agents_apart():
 
 def test_maddpg_auto_critic_input():
     # auto = AUTO_CRITIC_INPUT where the env has a state (measured by scripts/compare_critic_inputs.py; the
-    # figures are in the marl_core/maddpg.py docstring), observations where it has none (CartPole)
+    # figures are in the marl_core/learners/maddpg.py docstring), observations where it has none (CartPole)
     assert AUTO_CRITIC_INPUT == "observations"
     learner = build_learner(game_spec("harvest_v0", 2), learner_config("maddpg"), seed=0)
     assert learner.critic_source == AUTO_CRITIC_INPUT

@@ -1,4 +1,4 @@
-"""Exact LOLA and naive learners on iterated two-player games (marl_core/lola.py).
+"""Exact LOLA and naive learners on iterated two-player games (marl_core/learners/lola.py).
 
 Checked against things outside the code under test:
 - closed-form values of known memory-one strategies, summed by hand below (geometric series);

@@ -124,7 +124,7 @@ def arena(tmp_path, finished_run):
 def test_same_config_and_seed_give_byte_identical_summary(kind, tiny_runs):
     a, b = tiny_runs(kind, 0, 0), tiny_runs(kind, 0, 1)
     # expected: identical bytes -- a run is reproducible from its one seed (marl_core/team_env.py docstring,
-    # "Seeding"; marl_core/idqn.py and maddpg.py seed their own generators)
+    # "Seeding"; marl_core/learners/idqn.py and maddpg.py seed their own generators)
     assert (a / "summary.json").read_bytes() == (b / "summary.json").read_bytes()
     assert (a / "metrics.jsonl").read_bytes() == (b / "metrics.jsonl").read_bytes()
     for pa in sorted((a / "policies").glob("*.pt")):
@@ -406,7 +406,7 @@ BUNDLED = sorted(CONFIGS.glob("*.yaml"))
 
 # team sizes, from each file's num_agents / N (gymnasium envs are a team of one: marl_core/team_env.py)
 TEAM_SIZE = {"cartpole_idqn": 1, "cleanup_idqn": 3, "cleanup_tiny_idqn": 2, "cleanup_maddpg": 3, "harvest_idqn": 3,
-             "harvest_maddpg": 3, "spread_maddpg": 3, "harvest_mixed": 3, "ipd_lola": 2, "ipd_naive": 2}
+             "harvest_maddpg": 3, "harvest_ppo": 3, "spread_maddpg": 3, "harvest_mixed": 3, "ipd_lola": 2, "ipd_naive": 2}
 
 
 def test_every_bundled_config_is_listed():

@@ -24,7 +24,7 @@ import torch
 import torch.nn.functional as F
 from gymnasium import spaces
 
-import marl_core.idqn
+import marl_core.learners.idqn
 from marl_core.config import parse_config
 from marl_core.learners import build_learner
 from marl_core.spec import TeamSpec
@@ -437,7 +437,7 @@ def td_after_updates(monkeypatch, flip: bool, updates: int = 50) -> tuple[float,
     before = mean_abs_td(learner, t, y)
     with monkeypatch.context() as m:
         if flip:  # a sign-flipped loss: gradient ascent on the Huber loss
-            m.setattr(marl_core.idqn, "huber", lambda x, delta=1.0: -real_huber(x, delta))
+            m.setattr(marl_core.learners.idqn, "huber", lambda x, delta=1.0: -real_huber(x, delta))
         for _ in range(updates):
             learner.update(batch)
     assert learner.updates == updates
