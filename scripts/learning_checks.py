@@ -18,6 +18,8 @@ played on the same episodes. ``pass`` says whether the check's bar holds:
   non-learning team's (``one_cleaner`` here; ``nobody_cleans`` is the free-riders' outcome).
 * ``spread``: MADDPG on mpe2's ``simple_spread_v3``; bar: the median return per agent beats the no-op
   team's; the ``landmark_walk`` heuristic is reported beside it.
+* ``ppo_quickstart``: ``configs/harvest_ppo.yaml`` (the quick start's game, on-policy learner with a central
+  critic); bar: the median efficiency beats the strongest non-learning team's median.
 
 The CI tests (``tests/marl_core/test_learning.py``) run shorter versions of these. Runs reproduce bit for
 bit only on the same CPU and torch build; read the spread over seeds, not one seed.
@@ -48,6 +50,7 @@ CHECKS = {
     "quickstart": ("harvest_idqn.yaml", {}, "efficiency", ("beats_strongest", None)),
     "cleanup": ("cleanup_tiny_idqn.yaml", {}, "efficiency", ("beats_strongest", None)),
     "spread": ("spread_maddpg.yaml", {}, "return_mean", ("beats_team", "noop")),
+    "ppo_quickstart": ("harvest_ppo.yaml", {}, "efficiency", ("beats_strongest", None)),
 }
 
 

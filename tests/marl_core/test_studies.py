@@ -24,14 +24,17 @@ TINY = {"env.num_envs": 2, "env.params.num_agents": 2, "env.params.view_radius":
         "learner.replay_size": 1000, "learner.warmup_steps": 100, "train.total_steps": 200,
         "train.eval_every": 200, "train.eval_episodes": 2, "train.checkpoint_every": 200,
         "log.tensorboard": False, "log.gif_every": 0, "log.progress": False}
+# a study of learner.kind ppo: short rollouts, no replay keys
+TINY_PPO = {**{k: v for k, v in TINY.items() if k.split(".")[-1] not in ("batch_size", "replay_size", "warmup_steps")},
+            "learner.rollout_steps": 10}
 # a matrix-game study of learner.kind lola: a few updates, a few evaluation games
 TINY_LOLA = {"learner.updates": 5, "learner.eval_every_updates": 5, "train.eval_episodes": 4,
              "log.tensorboard": False, "log.progress": False}
 
 
-def test_the_bundled_studies_are_the_seven_of_the_readme():
-    assert NAMES == ["cleanup_cures", "learners_cleanup", "learners_harvest", "lola_ipd", "long_commons",
-                     "mixed_harvest", "scarcity_harvest"]
+def test_the_bundled_studies_are_the_nine_of_the_docs():
+    assert NAMES == ["cleanup_cures", "cleanup_team_critic", "commons_over_training", "learners_cleanup",
+                     "learners_harvest", "lola_ipd", "long_commons", "mixed_harvest", "scarcity_harvest"]
 
 
 @pytest.mark.parametrize("name", NAMES)
@@ -53,7 +56,8 @@ def _tiny_spec(name: str, tmp: Path) -> Path:
         data["set"] = {**data.get("set", {}), **TINY_LOLA}
     else:
         layout = "cleanup_tiny" if "cleanup" in data["base"] else "harvest_tiny"
-        data["set"] = {**data.get("set", {}), **TINY, "env.params.layout": layout}
+        tiny = TINY_PPO if base["learner"]["kind"] == "ppo" else TINY
+        data["set"] = {**data.get("set", {}), **tiny, "env.params.layout": layout}
     data["smoke_test"] = True
     path = tmp / f"{name}.yaml"
     path.write_text(yaml.safe_dump(data, sort_keys=False))

@@ -405,8 +405,8 @@ def test_evaluate_gif_writes_an_animated_gif(tmp_path, capsys):
 BUNDLED = sorted(CONFIGS.glob("*.yaml"))
 
 # team sizes, from each file's num_agents / N (gymnasium envs are a team of one: marl_core/team_env.py)
-TEAM_SIZE = {"cartpole_idqn": 1, "cleanup_idqn": 3, "cleanup_tiny_idqn": 2, "cleanup_maddpg": 3, "harvest_idqn": 3,
-             "harvest_maddpg": 3, "harvest_ppo": 3, "spread_maddpg": 3, "harvest_mixed": 3, "ipd_lola": 2, "ipd_naive": 2}
+TEAM_SIZE = {"cartpole_idqn": 1, "cartpole_ppo": 1, "cleanup_idqn": 3, "cleanup_tiny_idqn": 2, "climbing_ppo": 2, "cleanup_maddpg": 3, "cleanup_ppo": 5, "harvest_idqn": 3,
+             "harvest_maddpg": 3, "harvest_ppo": 3, "spread_maddpg": 3, "spread_ppo": 3, "harvest_mixed": 3, "ipd_lola": 2, "ipd_naive": 2}
 
 
 def test_every_bundled_config_is_listed():
