@@ -2,9 +2,11 @@
 
 This is a benchmark, not a test: it measures and prints, it asserts nothing and it exits 0.
 
-What it measures, for each learner (``idqn`` and ``maddpg``) on ``harvest_v0`` (layout ``harvest_small``,
-5 agents, view radius 7, the game's default ``max_cycles`` unless overridden), one learner after the other
-in the same process, under two settings (``--settings``):
+What it measures, for each row (``--learners``: ``idqn``, ``maddpg``, ``ppo_local``,
+``ppo_central``, ``ppo_joint_action``) on ``harvest_v0`` (layout ``harvest_small``, 5 agents, view
+radius 7, the game's default ``max_cycles`` unless overridden), one row after the other in the same
+process. The replay learners ``idqn`` and ``maddpg`` are measured under two settings
+(``--settings``); the ppo rows under ``new`` only (see "ppo rows" below):
 
 ``previous``
     The first release's settings, pinned in :data:`PREVIOUS_LEARNER`: a plain (not bit-packed) replay, the
@@ -19,6 +21,8 @@ Per learner, the headline keys: ``env_steps_per_s`` (new), ``previous_env_steps_
 ratio), ``replay_bytes_ratio`` (new: replay bytes per transition / the raw uint8 observation bytes),
 ``previous_replay_bytes_ratio``, ``replay_ratio`` and ``unpack_fraction_of_update`` (time in unpacking
 sampled batches over the update time); then ``previous`` and ``new`` with every figure below.
+A ppo row's headline keys: ``env_steps_per_s``, ``speedup_vs_idqn`` and
+``unpack_fraction_of_update``; then ``new``.
 
 ``env_steps_per_s``
     Env steps (vector steps x ``num_envs``) per wall second of the measured window, inside the real
@@ -66,21 +70,57 @@ calls its evaluation at ``total_steps``; the final evaluation, checkpoint and ru
 wrapper reads two clocks twice; that cost is measured on a no-op and reported
 (``timer_overhead_fraction``); it falls on the timed parts.
 
+ppo rows. ``ppo_local``, ``ppo_central`` and ``ppo_joint_action`` are ``learner.kind: ppo`` with
+that ``learner.critic``, at the library's ppo defaults (rollout length, epochs, minibatches, network
+sizes, torch threads) on ``--ppo-num-envs`` copies (default 64). ppo has no replay and no previous
+settings: each update collects ``rollout_steps`` vector steps of every copy into a
+``RolloutBuffer``, then calls ``learner.update`` on it once. What is measured differs from the rows
+above only here:
+
+``env_steps_per_s``, ``fractions``
+    As above, in the real loop of a ``marl_core.train._OnPolicyRun`` (its own ``train()``, the loop
+    of ``marl_core.onpolicy``), with timing wrappers on ``env.step``, ``learner.act``,
+    ``learner.update``, ``buffer.add``, ``buffer.start``, the buffer's unpacking of observations
+    (inside the update) and the run's ``scalar``, ``evaluate`` and ``save_checkpoint``. The warm-up
+    is ``max(1, --warmup-updates)`` whole rollouts with their updates; the window opens at the start
+    of the next rollout, holds whole rollouts (``--steps`` is rounded up to them) and closes when
+    the loop calls its evaluation at ``total_steps``. ``update`` is ``learner.update`` (the
+    no-gradient pass over the rollout, GAE and every minibatch step); ``everything_else`` holds
+    ``buffer.add`` (also reported on its own as ``buffer_add``), the loop's bookkeeping, logging and
+    checkpoints inside the window.
+``bare_update_per_s``
+    ``learner.update`` of a freshly built learner of the same config on one fixed full
+    ``RolloutBuffer`` (random 0/1 uint8 observations, random actions, normal rewards, no episode
+    end), best of three timed repeats after a warm-up; ``gflop_per_update``, ``achieved_gflops`` and
+    ``achieved_over_matmul`` as above, from one counted update. Beside it: ``env_steps_per_update``
+    (rollout_steps x copies), ``loop_updates_per_s``, ``loop_update_calls_per_s``,
+    ``bare_update_ms`` and ``update_bound_env_steps_per_s`` (bare updates per second x env steps per
+    update: the rate if acting and stepping cost nothing). Without ``--steps`` the window is sized
+    for about ``--seconds`` from the bare update time and a probe of ten vector steps of acting and
+    stepping.
+``speedup_vs_idqn``
+    The row's ``env_steps_per_s`` over the idqn row's (its ``new`` settings) measured in the same
+    run; None when idqn is not measured. Also in a top-level ``speedup_vs_idqn`` mapping.
+    ``--settings previous`` alone refuses the ppo rows.
+
 Noise. The window is one long run, not a best of repeats (a training loop's state moves on). Other
 processes on the machine slow it down: ``cpu_time_over_wall`` (this process's CPU time over the window's
 wall time; torch runs one intra-op thread by default) well below 1, a wide spread of the bare repeats
 and the load averages in the JSON say the wall-time figures are pessimistic.
 
-How to read it. Compare figures only between runs on the same machine (the JSON carries python, torch,
-numpy, platform, CPU and torch threads). ``targets`` lists what this project aims for (``speedup`` at least
-3 for idqn and 5 for maddpg, ``replay_bytes_ratio`` at most 0.15) and ``targets_met`` says whether this run
-reached it; neither changes the exit code.
+How to read it. Compare figures only between runs on the same machine (the JSON carries python,
+torch, numpy, platform, CPU and torch threads). ``targets`` lists what this project aims for
+(``speedup`` at least 3 for idqn and 5 for maddpg, ``replay_bytes_ratio`` at most 0.15,
+``speedup_vs_idqn`` at least 10 for ppo_local and 8 for ppo_central and ppo_joint_action) and
+``targets_met`` says whether this run reached it (None where the run could not tell); neither
+changes the exit code.
 
 Usage::
 
     python scripts/bench_train.py                 # a short table
     python scripts/bench_train.py --json          # one JSON object
     python scripts/bench_train.py --json --learners idqn --steps 8000 --num-envs 16
+    python scripts/bench_train.py --json --learners idqn,ppo_local --settings new --ppo-num-envs 32
 """
 
 from __future__ import annotations
@@ -98,13 +138,21 @@ from typing import Any
 
 from _common import cpu_name, load_average, non_negative_int, positive
 
-__all__ = ["LEARNERS", "TARGETS", "make_config", "plan", "window_steps", "measure_loop", "measure_bare",
-           "bench_learner", "main"]
+__all__ = ["LEARNERS", "PPO_ROWS", "TARGETS", "make_config", "plan", "window_steps", "measure_loop",
+           "measure_bare", "bench_learner", "ppo_window_steps", "filled_rollout",
+           "measure_bare_ppo", "bench_ppo", "main"]
 
-LEARNERS: tuple[str, ...] = ("idqn", "maddpg")
+REPLAY_LEARNERS: tuple[str, ...] = ("idqn", "maddpg")
+PPO_ROWS: dict[str, str] = {"ppo_local": "local", "ppo_central": "central",
+                            "ppo_joint_action": "joint_action"}  # row -> learner.critic
+LEARNERS: tuple[str, ...] = (*REPLAY_LEARNERS, *PPO_ROWS)  # rows of the report, in this order
 GAME, LAYOUT = "harvest_v0", "harvest_small"
 TARGETS: dict[str, float] = {"speedup_min_idqn": 3.0, "speedup_min_maddpg": 5.0, "replay_bytes_ratio_max": 0.15,
-                             "seconds_to_beat_greedy_max": 60.0}
+                             "seconds_to_beat_greedy_max": 60.0,
+                             "speedup_vs_idqn_min_ppo_local": 10.0,
+                             "speedup_vs_idqn_min_ppo_central": 8.0,
+                             "speedup_vs_idqn_min_ppo_joint_action": 8.0}
+DEFAULT_PPO_NUM_ENVS = 64
 DEFAULT_SECONDS = 30.0  # target length of the measured window when --steps is not given
 DEFAULT_WARMUP_UPDATES = 3
 _BARE_REPEATS = 3
@@ -118,16 +166,19 @@ def _round_up(value: int, multiple: int) -> int:
 def make_config(kind: str, num_envs: int, num_agents: int, view_radius: int, max_cycles: int | None,
                 seed: int, warmup_steps: int = 0, total_steps: int = 1, torch_threads: int = 1,
                 learner: dict[str, Any] | None = None):
-    """The run config of one measurement (see the module docstring); ``learner`` adds learner keys."""
+    """The run config of one measurement (see the module docstring); ``learner`` adds learner keys.
+    ``warmup_steps`` is left out for a learner that has none (ppo)."""
+    from marl_core.config import LEARNERS as LEARNER_CONFIGS
     from marl_core.config import parse_config
 
     params: dict[str, Any] = {"layout": LAYOUT, "num_agents": num_agents, "view_radius": view_radius}
     if max_cycles is not None:
         params["max_cycles"] = max_cycles
+    has_warmup = "warmup_steps" in LEARNER_CONFIGS[kind].model_fields
+    warmup = {"warmup_steps": warmup_steps} if has_warmup else {}
     return parse_config({
         "env": {"name": GAME, "params": params, "num_envs": num_envs},
-        "learner": {"kind": kind, "warmup_steps": warmup_steps, "torch_threads": torch_threads,
-                    **(learner or {})},
+        "learner": {"kind": kind, **warmup, "torch_threads": torch_threads, **(learner or {})},
         "train": {"total_steps": total_steps, "seed": seed, "eval_every": total_steps,
                   "eval_episodes": 1, "baselines": ["random"]},
         "log": {"tensorboard": False, "gif_every": 0, "progress": False},
@@ -215,25 +266,50 @@ def _timer_overhead_s() -> float:
 
 
 def _instrument(r: Any, clock: _Clock) -> None:
-    """Replace instance attributes of the run's objects with timing wrappers around the originals."""
+    """Replace instance attributes of the run's objects with timing wrappers around the originals.
+
+    A replay run's window opens at the first exploring ``learner.act`` at or past the warm-up; an
+    on-policy run's (it has ``r.buffer``) at the first ``buffer.start`` at or past it, the start of
+    the first rollout after the warm-up's last update."""
+    on_policy = hasattr(r, "buffer")
     r.env.step = _timed(clock, "env_step", r.env.step)
-    r.replay.add = _timed(clock, "replay_add", r.replay.add)
-    r.replay.sample = _timed(clock, "replay_sample", r.replay.sample)
-    r.replay.update_priorities = _timed(clock, "update_priorities", r.replay.update_priorities)
+    if on_policy:
+        r.buffer.add = _timed(clock, "buffer_add", r.buffer.add)
+        # the buffer's unpacking, inside learner.update
+        r.buffer.obs.decode = _timed(clock, "rollout_unpack", r.buffer.obs.decode)
+    else:
+        r.replay.add = _timed(clock, "replay_add", r.replay.add)
+        r.replay.sample = _timed(clock, "replay_sample", r.replay.sample)
+        r.replay.update_priorities = _timed(clock, "update_priorities", r.replay.update_priorities)
     r.learner.update = _timed(clock, "learner_update", r.learner.update)
-    r.replay._unpack = _timed(clock, "replay_unpack", r.replay._unpack)  # inside replay.sample
+    if not on_policy:
+        r.replay._unpack = _timed(clock, "replay_unpack", r.replay._unpack)  # inside replay.sample
     r.scalar = _timed(clock, "logging", r.scalar)
     act = _timed(clock, "act", r.learner.act)
 
-    def open_window_then_act(obs, explore, env_steps=0):
-        if explore and not clock.active and not clock.closed and env_steps >= clock.warmup:
-            clock.active = True
-            clock.steps0, clock.episodes0, clock.updates0 = env_steps, r.episodes, r.learner.updates
-            clock.load0 = load_average()
-            clock.cpu0, clock.t0 = time.process_time(), time.perf_counter()
-        return act(obs, explore=explore, env_steps=env_steps)
+    def open_window(env_steps: int) -> None:
+        clock.active = True
+        clock.steps0, clock.episodes0, clock.updates0 = env_steps, r.episodes, r.learner.updates
+        clock.load0 = load_average()
+        clock.cpu0, clock.t0 = time.process_time(), time.perf_counter()
 
-    r.learner.act = open_window_then_act
+    if on_policy:
+        start = _timed(clock, "buffer_start", r.buffer.start)
+
+        def open_window_then_start(obs, state=None):
+            if not clock.active and not clock.closed and r.env_steps >= clock.warmup:
+                open_window(r.env_steps)
+            return start(obs, state)
+
+        r.buffer.start = open_window_then_start
+        r.learner.act = act
+    else:
+        def open_window_then_act(obs, explore, env_steps=0):
+            if explore and not clock.active and not clock.closed and env_steps >= clock.warmup:
+                open_window(env_steps)
+            return act(obs, explore=explore, env_steps=env_steps)
+
+        r.learner.act = open_window_then_act
     evaluate, save = r.evaluate, r.save_checkpoint
 
     def close_window_then_evaluate(final: bool = False):
@@ -258,15 +334,18 @@ def _instrument(r: Any, clock: _Clock) -> None:
 
 
 def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
-    """Run the real ``_Run.train()`` of ``cfg`` in a temporary directory with the parts timed."""
+    """Run the real ``train()`` of ``cfg``'s run (``_Run``; ``_OnPolicyRun`` for ppo) in a temporary
+    directory with the parts timed."""
     from marl_core.config import dump_config
-    from marl_core.train import _Run
+    from marl_core.train import _OnPolicyRun, _Run
 
+    on_policy = cfg.learner.kind == "ppo"
     tmp = Path(tempfile.mkdtemp(prefix="bench_train_"))
     try:
         out = tmp / "run"
         t_build = time.perf_counter()
-        r = _Run(cfg, out, None)  # the same steps as marl_core.train.run, which gives no handle on r
+        # the same steps as marl_core.train.run, which gives no handle on r
+        r = (_OnPolicyRun if on_policy else _Run)(cfg, out, None)
         out.mkdir(parents=True)
         (out / "checkpoints").mkdir()
         dump_config(cfg, out / "config.yaml")
@@ -278,11 +357,6 @@ def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
         r.train()
         t_end = time.perf_counter()
         info = {
-            "replay_bytes_per_transition": r.replay.bytes_per_transition,
-            "raw_obs_bytes_per_transition": r.replay.raw_bytes_per_transition,
-            "replay_stores_state": r.keep_state,
-            "replay_packed": r.replay.pack_bits,
-            "replay_capacity": r.replay.capacity,
             "obs_shape": list(r.spec.obs_shape),
             "obs_dtype": str(r.spec.obs_dtype),
             "num_actions": r.spec.num_actions,
@@ -290,6 +364,17 @@ def measure_loop(cfg: Any, warmup: int) -> dict[str, Any]:
             "episodes_total": r.episodes,
             "torch_threads": _torch_threads(),
         }
+        if on_policy:
+            info.update({"rollout_bytes": r.buffer.nbytes, "rollout_packed": r.buffer.obs.pack,
+                         "rollout_stores_state": r.keep_state})
+        else:
+            info.update({
+                "replay_bytes_per_transition": r.replay.bytes_per_transition,
+                "raw_obs_bytes_per_transition": r.replay.raw_bytes_per_transition,
+                "replay_stores_state": r.keep_state,
+                "replay_packed": r.replay.pack_bits,
+                "replay_capacity": r.replay.capacity,
+            })
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     if not clock.closed:
@@ -501,6 +586,218 @@ def bench_learner(kind: str, args: argparse.Namespace, settings: dict[str, Any] 
     }
 
 
+# ------------------------------------------------------------------------------------- ppo rows
+def ppo_window_steps(cfg: Any, update_s: float, vector_step_s: float, seconds: float) -> int:
+    """Env steps for a window of about ``seconds`` in whole rollouts (at least one): a rollout costs
+    ``rollout_steps`` vector steps of acting and stepping at ``vector_step_s`` each, then one update
+    of ``update_s``."""
+    L, B = cfg.learner, cfg.env.num_envs
+    per_update = L.rollout_steps * vector_step_s + update_s
+    return max(1, round(seconds / per_update)) * L.rollout_steps * B
+
+
+def filled_rollout(spec: Any, learner_cfg: Any, num_envs: int, seed: int, with_state: bool = False):
+    """A full ``RolloutBuffer`` as ``_OnPolicyRun`` makes it (``rollout_steps`` x ``num_envs``,
+    bit-packed when the spaces allow and ``pack_rollout`` says so), filled with random 0/1
+    observations (and states when ``with_state``), uniformly random actions, normal rewards and no
+    episode end (the real loop's ends are rare: one step in ``max_cycles``)."""
+    import numpy as np
+
+    from marl_core.buffer import RolloutBuffer
+    from marl_core.train import _zero_one
+
+    rng = np.random.default_rng(seed)
+    T, B, N = learner_cfg.rollout_steps, num_envs, spec.num_agents
+    space = spec.state_space if with_state else None
+    buf = RolloutBuffer(T, B, N, spec.obs_shape, spec.obs_dtype,
+                        state_shape=None if space is None else tuple(space.shape),
+                        state_dtype=None if space is None else space.dtype,
+                        pack=learner_cfg.pack_rollout and _zero_one(spec.obs_space) and (
+                            space is None or _zero_one(space)))
+
+    def obs():
+        return rng.integers(0, 2, size=(B, N, *spec.obs_shape)).astype(spec.obs_dtype)
+
+    def state():
+        if space is None:
+            return None
+        return rng.integers(0, 2, size=(B, *space.shape)).astype(space.dtype)
+
+    buf.start(obs(), state())
+    terminated, end = np.zeros((B, N), bool), np.zeros(B, bool)
+    for _ in range(T):
+        nxt, nxt_state = obs(), state()
+        actions = rng.integers(0, spec.num_actions, size=(B, N))
+        rewards = rng.normal(size=(B, N)).astype(np.float32)
+        buf.add(actions, rewards, terminated, end, nxt, nxt, nxt_state, nxt_state)
+    return buf
+
+
+def measure_bare_ppo(cfg: Any, seconds: float) -> dict[str, Any]:
+    """``learner.update`` of a freshly built ppo learner on one fixed filled rollout
+    (:func:`filled_rollout`), in a tight loop: best of three timed repeats after a warm-up, as
+    :func:`measure_bare`. Before it, a short probe of acting and stepping (``learner.act`` with
+    exploration, then the env's step, on ``env.num_envs`` copies) that only sizes the default
+    window."""
+    import torch
+
+    from marl_core.learners import build_learner
+    from marl_core.rollout import Collector
+    from marl_core.team_env import make_team_env
+    from marl_core.train import _reads_state
+
+    torch.set_num_threads(cfg.learner.torch_threads)  # as _Run does
+    seed = cfg.train.seed
+    env = make_team_env(cfg.env.name, cfg.env.params, cfg.env.num_envs, seed,
+                        with_state=_reads_state(cfg.learner))
+    spec = env.spec
+    learner = build_learner(spec, cfg.learner, seed)
+    col = Collector(env, seed)
+    probe, t = 0, 0.0
+    for i in range(10):  # the first two steps are not timed
+        if i == 2:
+            t = time.perf_counter()
+        col.step(learner.act(col.obs, explore=True, env_steps=0))
+        probe += i >= 2
+    vector_step_s = (time.perf_counter() - t) / probe
+    env.close()
+    rollout = filled_rollout(spec, cfg.learner, cfg.env.num_envs, seed,
+                             with_state=learner.uses_state)
+    flops = update_flops(learner, rollout)
+    update = learner.update
+    t, warm = time.perf_counter(), 0
+    while warm < 2 or time.perf_counter() - t < 0.1 * seconds:
+        update(rollout)
+        warm += 1
+    per_update = (time.perf_counter() - t) / warm
+    n = max(2, int(0.9 * seconds / _BARE_REPEATS / per_update))
+    rates, cpu_rates = [], []
+    for _ in range(_BARE_REPEATS):
+        t, c = time.perf_counter(), time.process_time()
+        for _ in range(n):
+            update(rollout)
+        rates.append(n / (time.perf_counter() - t))
+        cpu_rates.append(n / (time.process_time() - c))
+    return {"best": max(rates), "median": sorted(rates)[len(rates) // 2], "repeats": rates,
+            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm,
+            "flops": flops, "vector_step_s": vector_step_s}
+
+
+def bench_ppo(row: str, args: argparse.Namespace) -> dict[str, Any]:
+    """Every figure of one ppo row (``learner.critic`` from :data:`PPO_ROWS`) at the library's ppo
+    defaults on ``--ppo-num-envs`` copies: the bare update loop first (it also sizes the default
+    window), then the real loop of ``_OnPolicyRun``."""
+    from marl_core.config import config_to_dict
+
+    B, extra = args.ppo_num_envs, {"critic": PPO_ROWS[row]}
+    base = make_config("ppo", B, args.agents, args.view_radius, args.max_cycles, args.seed,
+                       torch_threads=args.torch_threads, learner=extra)
+    bare = measure_bare_ppo(base, args.bare_seconds)
+    per_update = base.learner.rollout_steps * B  # env steps per update
+    warmup = max(1, args.warmup_updates) * per_update
+    if args.steps:
+        steps, chosen = _round_up(args.steps, per_update), "--steps, rounded up to whole rollouts"
+    else:
+        steps = ppo_window_steps(base, 1 / bare["median"], bare["vector_step_s"], args.seconds)
+        chosen = (f"from the bare update rate and a probe of acting and stepping, for about "
+                  f"{args.seconds:g} s")
+    cfg = make_config("ppo", B, args.agents, args.view_radius, args.max_cycles, args.seed,
+                      total_steps=warmup + steps, torch_threads=args.torch_threads, learner=extra)
+    loop = measure_loop(cfg, warmup)
+    clock, window = loop["clock"], loop["window_s"]
+    sec, cpu, calls = clock.seconds, clock.cpu_seconds, clock.calls
+    parts = {"env_step": sec.get("env_step", 0.0), "act": sec.get("act", 0.0),
+             "update": sec.get("learner_update", 0.0)}
+    else_s = window - sum(parts.values())
+    named_else = {k: sec.get(k, 0.0)
+                  for k in ("buffer_add", "buffer_start", "logging", "checkpoint")}
+    fractions = {**{k: v / window for k, v in parts.items()}, "everything_else": else_s / window,
+                 "buffer_add": named_else["buffer_add"] / window}
+    cpu_window = clock.cpu1 - clock.cpu0
+    cpu_parts = {"env_step": cpu.get("env_step", 0.0), "act": cpu.get("act", 0.0),
+                 "update": cpu.get("learner_update", 0.0)}
+    cpu_fractions = {**{k: v / cpu_window for k, v in cpu_parts.items()},
+                     "everything_else": 1 - sum(cpu_parts.values()) / cpu_window,
+                     "buffer_add": cpu.get("buffer_add", 0.0) / cpu_window}
+    overhead = _timer_overhead_s() * sum(calls.values())
+    updates = calls.get("learner_update", 0)
+    vec_steps = loop["window_env_steps"] // B
+    update_s = parts["update"]
+    L = cfg.learner
+    return {
+        "env_steps_per_s": round(loop["window_env_steps"] / window, 1),
+        "env_steps_per_update": per_update,
+        "fractions": {k: round(v, 4) for k, v in fractions.items()},
+        "cpu_time_fractions": {k: round(v, 4) for k, v in cpu_fractions.items()},
+        "unpack_fraction_of_update": (round(sec.get("rollout_unpack", 0.0) / update_s, 4)
+                                      if update_s and loop["rollout_packed"] else None),
+        "rollout_packed": loop["rollout_packed"],
+        "seconds": {
+            "window": round(window, 3),
+            **{k: round(v, 3) for k, v in parts.items()},
+            "rollout_unpack": round(sec.get("rollout_unpack", 0.0), 3),
+            "everything_else": round(else_s, 3),
+            "everything_else_parts": {
+                **{k: round(v, 3) for k, v in named_else.items()},
+                "loop_and_collector_rest": round(else_s - sum(named_else.values()), 3)},
+        },
+        "ms_per_vector_step": {
+            "total": round(1e3 * window / vec_steps, 3),
+            **{k: round(1e3 * v / vec_steps, 3) for k, v in parts.items()},
+            "everything_else": round(1e3 * else_s / vec_steps, 3),
+            "buffer_add": round(1e3 * named_else["buffer_add"] / vec_steps, 3),
+        },
+        "calls_in_window": dict(sorted(calls.items())),
+        "timer_overhead_fraction": round(overhead / window, 5),
+        "bare_update_per_s": round(bare["best"], 3),
+        "bare_update_per_cpu_s": round(bare["cpu_best"], 3),
+        "bare_update_ms": round(1e3 / bare["best"], 2),
+        "update_bound_env_steps_per_s": round(bare["best"] * per_update, 1),
+        "gflop_per_update": round(bare["flops"] / 1e9, 4),
+        "achieved_gflops": round(bare["flops"] * bare["cpu_best"] / 1e9, 2),
+        "bare_update_per_s_repeats": [round(x, 3) for x in bare["repeats"]],
+        "bare_updates_per_repeat": bare["updates_per_repeat"],
+        "probe_vector_step_ms": round(1e3 * bare["vector_step_s"], 3),
+        "loop_updates_per_s": round(updates / window, 3),
+        "loop_update_calls_per_s": round(updates / update_s, 3) if updates else None,
+        "loop_update_call_over_bare": (round(updates / update_s / bare["best"], 3)
+                                       if updates else None),
+        "loop_update_per_cpu_s": (round(updates / cpu["learner_update"], 3) if updates else None),
+        "rollout_bytes": loop["rollout_bytes"],
+        "rollout_stores_state": loop["rollout_stores_state"],
+        "window": {"env_steps": loop["window_env_steps"], "vector_steps": vec_steps,
+                   "chosen": chosen, "from_env_steps": clock.steps0,
+                   "to_env_steps": cfg.train.total_steps, "updates": updates,
+                   "episodes_ended": loop["episodes_total"] - clock.episodes0},
+        "warmup": {"env_steps": clock.steps0, "seconds": round(loop["warmup_s"], 3),
+                   "updates": clock.updates0},
+        "excluded_after_window_s": {**{k: round(v, 3) for k, v in clock.after.items()},
+                                    "all": round(loop["after_window_s"], 3)},
+        "setup_s": round(loop["setup_s"], 3),
+        "cpu_time_over_wall": round(cpu_window / window, 3),
+        "loadavg_at_start": clock.load0,
+        "loadavg_at_end": load_average(),
+        "torch_threads": loop["torch_threads"],
+        "obs_shape": loop["obs_shape"],
+        "obs_dtype": loop["obs_dtype"],
+        "num_actions": loop["num_actions"],
+        "stated_config": {"num_envs": cfg.env.num_envs, "critic": L.critic,
+                          "critic_input": L.critic_input, "rollout_steps": L.rollout_steps,
+                          "epochs": L.epochs, "minibatches": L.minibatches,
+                          "minibatch_joint_steps": per_update // L.minibatches,
+                          "share_parameters": L.share_parameters, "pack_rollout": L.pack_rollout,
+                          "hidden": L.hidden, "conv_channels": L.conv_channels,
+                          "conv_strides": L.conv_strides, "total_steps": cfg.train.total_steps,
+                          "eval_every": cfg.train.eval_every,
+                          "checkpoint_every": cfg.train.checkpoint_every,
+                          "log_every": cfg.log.log_every,
+                          "max_cycles": cfg.env.params["max_cycles"]},
+        "config": config_to_dict(cfg),
+        "kind": "ppo",
+        "row": row,
+    }
+
+
 QUICK_START = Path(__file__).resolve().parent.parent / "configs" / "harvest_idqn.yaml"
 TIME_TO_RESULT_SEEDS = 3
 TIME_TO_RESULT_EVAL_EVERY = 5000
@@ -593,9 +890,16 @@ def settings_of(name: str, kind: str, args: argparse.Namespace) -> dict[str, Any
 
 
 def compared(runs: dict[str, dict[str, Any]]) -> dict[str, Any]:
-    """The headline keys of one learner from its ``previous`` and ``new`` measurements (either may be
-    missing when ``--settings`` picks one), then each measurement in full."""
+    """The headline keys of one row from its ``previous`` and ``new`` measurements (either may be
+    missing when ``--settings`` picks one; a ppo row has only ``new``), then each measurement in
+    full. A ppo row's ``speedup_vs_idqn`` is None here; ``main`` fills it in once idqn is
+    measured."""
     main = runs.get("new") or runs["previous"]
+    if main["kind"] == "ppo":
+        head = {"env_steps_per_s": main["env_steps_per_s"], "speedup_vs_idqn": None,
+                "unpack_fraction_of_update": main["unpack_fraction_of_update"],
+                "targets_met": {"speedup_vs_idqn_min": None}}
+        return {**head, **runs}
     head: dict[str, Any] = {
         "env_steps_per_s": main["env_steps_per_s"],
         "replay_bytes_ratio": main["replay_over_raw"],
@@ -624,6 +928,26 @@ def _learner_list(text: str) -> list[str]:
     return list(dict.fromkeys(names))
 
 
+def row_settings(row: str, settings: list[str]) -> list[str]:
+    """The settings a row is measured under: those of ``--settings`` it has (a ppo row has only
+    ``new``)."""
+    return [n for n in settings if row not in PPO_ROWS or n == "new"]
+
+
+def speedups_vs_idqn(results: dict[str, dict[str, Any]]) -> dict[str, float | None]:
+    """Each ppo row's env steps per second over idqn's (its ``new`` settings) in the same run (None
+    without it); sets the row's ``speedup_vs_idqn`` and ``targets_met`` too."""
+    idqn = results.get("idqn", {}).get("new", {}).get("env_steps_per_s")
+    out: dict[str, float | None] = {}
+    for row in results:
+        if row in PPO_ROWS:
+            ratio = round(results[row]["env_steps_per_s"] / idqn, 3) if idqn else None
+            results[row]["speedup_vs_idqn"] = out[row] = ratio
+            results[row]["targets_met"]["speedup_vs_idqn_min"] = (
+                None if ratio is None else ratio >= TARGETS[f"speedup_vs_idqn_min_{row}"])
+    return out
+
+
 def _settings_list(text: str) -> list[str]:
     names = [t.strip() for t in text.split(",") if t.strip()]
     if not names or any(n not in SETTINGS for n in names):
@@ -635,24 +959,34 @@ def _settings_list(text: str) -> list[str]:
 def _table(report: dict[str, Any]) -> str:
     lines = [f"python {report['python']}  torch {report['torch']}  numpy {report['numpy']}  "
              f"{report['platform']}", f"cpu {report['cpu']} x{report['cpu_count']}", "",
-             f"{'learner':<8}{'settings':<10}{'copies':>7}{'env steps/s':>12}{'env':>7}{'act':>7}{'update':>8}"
+             f"{'learner':<18}{'settings':<10}{'copies':>7}{'env steps/s':>12}{'env':>7}{'act':>7}"
+             f"{'update':>8}"
              f"{'else':>7}{'unpack':>8}{'upd/s loop':>12}{'bare':>8}{'GFLOP/s':>9}{'replay/raw':>12}"
              f"{'cpu/wall':>10}"]
     for kind in report["learners"]:
-        for name in report["settings"]:
+        for name in (n for n in report["settings"] if n in report[kind]):
             r = report[kind][name]
             f = r["fractions"]
             unpack = r["unpack_fraction_of_update"] or 0.0
-            lines.append(f"{kind:<8}{name:<10}{r['stated_config']['num_envs']:>7}{r['env_steps_per_s']:>12,.0f}"
+            replay = f"{r['replay_over_raw']:>12.3f}" if "replay_over_raw" in r else f"{'-':>12}"
+            lines.append(f"{kind:<18}{name:<10}{r['stated_config']['num_envs']:>7}"
+                         f"{r['env_steps_per_s']:>12,.0f}"
                          f"{f['env_step']:>7.1%}{f['act']:>7.1%}{f['update']:>8.1%}{f['everything_else']:>7.1%}"
-                         f"{unpack:>8.1%}{r['loop_updates_per_s']:>12.1f}{r['bare_update_per_s']:>8.1f}"
-                         f"{r['achieved_gflops']:>9.1f}{r['replay_over_raw']:>12.3f}"
-                         f"{r['cpu_time_over_wall']:>10.2f}")
+                         f"{unpack:>8.1%}{r['loop_updates_per_s']:>12.2f}"
+                         f"{r['bare_update_per_s']:>8.2f}"
+                         f"{r['achieved_gflops']:>9.1f}{replay}{r['cpu_time_over_wall']:>10.2f}")
     lines += ["", "fractions of the window's wall time (unpack: of the update time); upd/s: per window "
               "second, bare loop; GFLOP/s: bare updates per CPU second x counted FLOPs, against "
               f"{report['matmul_gflops']['gflops']:.1f} for a plain matrix product", "targets:"]
     for kind in report["learners"]:
         r = report[kind]
+        if kind in PPO_ROWS:
+            goal = TARGETS["speedup_vs_idqn_min_" + kind]
+            speed = ("needs idqn in the same run" if r["speedup_vs_idqn"] is None
+                     else f"{r['speedup_vs_idqn']:.2f}x")
+            lines.append(f"  {kind}: env steps/s over idqn's (new settings) {speed} "
+                         f"(goal >= {goal:g}x)")
+            continue
         speed = (f"speedup {r['speedup']:.2f}x (goal >= {TARGETS['speedup_min_' + kind]:g}x)"
                  if "speedup" in r else "speedup: needs both settings")
         lines.append(f"  {kind}: {speed}; replay bytes / raw obs bytes {r['replay_bytes_ratio']:.3f} "
@@ -685,14 +1019,17 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--bare-seconds", type=positive(float), default=10.0,
                         help="time budget of the bare update loop per learner (default 10)")
     parser.add_argument("--learners", type=_learner_list, default=list(LEARNERS),
-                        help="comma-separated learners (default idqn,maddpg)")
+                        help=f"comma-separated rows (default {','.join(LEARNERS)})")
     parser.add_argument("--seed", type=int, default=0, help="seed of the run and of the bare batch")
     parser.add_argument("--torch-threads", type=positive(int), default=1,
                         help="learner.torch_threads of the measured runs (default 1, the library default)")
     parser.add_argument("--new-num-envs", type=positive(int), default=DEFAULT_NEW_NUM_ENVS,
                         help=f"env copies of the new settings (default {DEFAULT_NEW_NUM_ENVS})")
     parser.add_argument("--settings", type=_settings_list, default=list(SETTINGS),
-                        help="comma-separated: previous, new (default both)")
+                        help="comma-separated: previous, new (default both); ppo rows have only "
+                             "new")
+    parser.add_argument("--ppo-num-envs", type=positive(int), default=DEFAULT_PPO_NUM_ENVS,
+                        help=f"env copies of the ppo rows (default {DEFAULT_PPO_NUM_ENVS})")
     parser.add_argument("--time-to-result", action="store_true",
                         help="also time the quick-start config to beating the greedy team "
                              f"(seconds_to_beat_greedy, median of {TIME_TO_RESULT_SEEDS} seeds)")
@@ -709,6 +1046,10 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     if args.skip_throughput and not args.time_to_result:
         parser.error("--skip-throughput needs --time-to-result")
+    no_setting = [row for row in args.learners if not row_settings(row, args.settings)]
+    if no_setting and not args.skip_throughput:
+        parser.error(f"--settings {','.join(args.settings)}: {', '.join(no_setting)} ha"
+                     f"{'s' if len(no_setting) == 1 else 've'} only the new settings")
 
     import numpy as np
     import torch
@@ -732,15 +1073,22 @@ def main(argv: list[str] | None = None) -> int:
     results = {}
     learners = [] if args.skip_throughput else args.learners
     for kind in learners:
-        runs = {name: bench_learner(kind, args, settings_of(name, kind, args)) for name in args.settings}
+        if kind in PPO_ROWS:
+            runs = {"new": bench_ppo(kind, args)}
+        else:
+            runs = {name: bench_learner(kind, args, settings_of(name, kind, args))
+                    for name in args.settings}
         results[kind] = compared(runs)
+    speedup_vs_idqn = speedups_vs_idqn(results)
     torch.set_num_threads(args.torch_threads)
     matmul = matmul_gflops()
     for kind in results:
-        for name in args.settings:
+        for name in row_settings(kind, args.settings):
             run = results[kind][name]
             run["achieved_over_matmul"] = round(run["achieved_gflops"] / matmul["gflops"], 3)
-    extra = {}
+    extra: dict[str, Any] = {}
+    if speedup_vs_idqn:
+        extra["speedup_vs_idqn"] = speedup_vs_idqn
     if args.time_to_result:
         extra["time_to_result"] = time_to_result(args.ttr_seeds, args.ttr_eval_every, args.ttr_set)
         extra["seconds_to_beat_greedy"] = extra["time_to_result"]["seconds_to_beat_greedy"]

@@ -49,6 +49,33 @@ def test_bench_train_prints_its_headline_keys():
     assert 1000 <= first < 1016
 
 
+def test_bench_train_ppo_rows_report_their_speedup_over_idqn():
+    # scripts/bench_train.py docstring, "ppo rows": one setting (new), speedup_vs_idqn from this run
+    args = ["--steps", "64", "--seconds", "0.5", "--bare-seconds", "0.2", "--warmup-updates", "1",
+            "--new-num-envs", "4", "--ppo-num-envs", "2", "--agents", "2", "--view-radius", "2",
+            "--max-cycles", "50", "--learners", "idqn,ppo_central", "--settings", "new", "--json"]
+    script = str(ROOT / "scripts" / "bench_train.py")
+    proc = subprocess.run([sys.executable, script, *args], cwd=ROOT, capture_output=True, text=True,
+                          timeout=240)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    report = json.loads(proc.stdout)
+    row = report["ppo_central"]
+    assert set(row) >= {"env_steps_per_s", "speedup_vs_idqn", "targets_met", "new"}
+    assert "previous" not in row
+    new = row["new"]
+    for key in ("env_steps_per_s", "fractions", "gflop_per_update", "achieved_gflops",
+                "achieved_over_matmul", "bare_update_per_s", "env_steps_per_update",
+                "loop_updates_per_s"):
+        assert key in new, key
+    assert set(new["fractions"]) >= {"env_step", "act", "update", "everything_else"}
+    assert new["gflop_per_update"] > 0 and new["env_steps_per_update"] == 32 * 2
+    assert new["stated_config"]["critic"] == "central" and new["window"]["updates"] >= 1
+    expected = round(row["env_steps_per_s"] / report["idqn"]["env_steps_per_s"], 3)
+    assert row["speedup_vs_idqn"] == expected == report["speedup_vs_idqn"]["ppo_central"]
+    assert isinstance(report["targets_met"]["ppo_central"]["speedup_vs_idqn_min"], bool)
+    assert report["targets"]["speedup_vs_idqn_min_ppo_central"] == 8
+
+
 def test_bench_train_refuses_a_bad_override_in_one_line():
     proc = subprocess.run([sys.executable, str(ROOT / "scripts" / "bench_train.py"), "--time-to-result",
                            "--ttr-set", "train.total_step=5"], cwd=ROOT, capture_output=True, text=True,
