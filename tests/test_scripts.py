@@ -20,7 +20,9 @@ ROOT = Path(__file__).resolve().parents[1]
     ["bench_env.py", "--num-envs", "2", "--agents", "2", "--seconds", "0.2", "--repeats", "1", "--json"],
     ["bench_train.py", "--steps", "64", "--bare-seconds", "0.3", "--warmup-updates", "1", "--num-envs", "2",
      "--agents", "2", "--view-radius", "2", "--max-cycles", "50", "--json"],
-], ids=["bench_env", "bench_train"])
+    ["bench_team_nets.py", "--agents", "2", "--view-radius", "2", "--act-batch", "4", "--train-batch", "8",
+     "--repeats", "1"],
+], ids=["bench_env", "bench_train", "bench_team_nets"])
 def test_benchmark_runs_and_prints_json(args):
     proc = subprocess.run([sys.executable, str(ROOT / "scripts" / args[0]), *args[1:]], cwd=ROOT,
                           capture_output=True, text=True, timeout=240)
