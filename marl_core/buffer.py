@@ -29,7 +29,13 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["RolloutBuffer"]
+__all__ = ["RolloutBuffer", "zero_one"]
+
+
+def zero_one(space: Any) -> bool:
+    """A uint8 Box whose every cell lies in [0, 1]: its values can be stored bit-packed."""
+    return (getattr(space, "dtype", None) == np.uint8 and bool(np.all(space.low == 0))
+            and bool(np.all(space.high == 1)))
 
 
 class _Store:

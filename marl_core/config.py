@@ -702,9 +702,10 @@ class SeatConfig(BaseModel):
 
     model_config = _STRICT
 
-    learner: IDQNConfig | MADDPGConfig | None = Field(None, discriminator="kind", description="a learner "
-                                                      "of its own for these seats (a learner section; its "
-                                                      "replay keys come from the top-level learner)")
+    learner: IDQNConfig | MADDPGConfig | PPOConfig | None = Field(
+        None, discriminator="kind", description="a learner of its own for these seats (a learner section; "
+        "an idqn or maddpg seat takes its replay keys from the top-level learner, a ppo seat learns from "
+        "rollouts of its own seats)")
     policy: str | None = Field(None, description="a saved policy, kept fixed: a policy file for one seat, or a "
                                "run's policies/ directory (one <agent>.pt per seat)")
     member: str | None = Field(None, description="a non-learning member: random, noop or one of the game's "
@@ -761,10 +762,11 @@ class RunConfig(BaseModel):
 
     @model_validator(mode="after")
     def _ppo_fits(self) -> RunConfig:
-        """A ppo learner trains the whole team from rollouts; seated teams share one replay."""
+        """With seats, the top-level learner owns the shared replay; a ppo learner sits in a seat."""
         if self.learner.kind == "ppo" and self.seats:
-            raise _own_error("the seats section is not allowed with learner.kind = 'ppo' yet: seated teams "
-                             "share one replay; leave seats out")
+            raise _own_error("learner.kind = 'ppo' is not allowed with seats: the top-level learner owns the "
+                             "seats' shared replay (idqn or maddpg); seat the ppo agents instead, e.g. "
+                             "seats.agent_0.learner.kind = 'ppo'")
         return self
 
     @model_validator(mode="after")
@@ -796,7 +798,8 @@ def _fill_seat_replay_keys(seats: dict[str, Any], top: Any) -> dict[str, Any]:
         return seats  # the learner section's own error is reported
     out = {}
     for name, seat in seats.items():
-        if isinstance(seat, dict) and isinstance(seat.get("learner"), dict):
+        if isinstance(seat, dict) and isinstance(seat.get("learner"), dict) and \
+                seat["learner"].get("kind") != "ppo":  # a ppo seat learns from its own rollouts, no replay
             own = dict(seat["learner"])
             for key in SHARED_REPLAY_KEYS:
                 if key in own and own[key] != resolved[key]:

@@ -7,8 +7,8 @@
       agent_1,agent_2: {policy: runs/earlier/policies}         # saved policies, kept fixed
       agent_3: {member: greedy}                                # a scripted member (or random, noop)
 
-Agents not named form one more group with the top-level ``learner``. A group's learner sees only its
-own seats: its observations, actions and rewards are the group's columns of the joint transition, and a
+Agents not named form one more group with the top-level ``learner`` (idqn or maddpg: it owns the replay
+keys). A group's learner sees only its own seats: its observations, actions and rewards are the group's columns of the joint transition, and a
 centralised critic inside a group sees the joint action of that group (parameter sharing, too, applies
 within a group). Every seat is stepped together in one env, and every group's transitions go to one replay
 (the top-level learner's replay keys: ``batch_size``, ``replay_size``, ``warmup_steps``, ``train_every``,
@@ -16,6 +16,12 @@ within a group). Every seat is stepped together in one env, and every group's tr
 whose discount differs from the replay's (the top-level learner's) has its bootstrap factor rescaled,
 which is exact for 1-step returns; ``n_step > 1``, prioritized replay and a critic reading the env state
 are therefore not allowed with seats.
+
+A group whose learner is on-policy (``seats.X.learner.kind: ppo``) learns from rollouts of its own seats
+instead of the replay: the same steps that go into the replay also go, column by column, into the group's
+rollout buffer (its ``rollout_steps`` vector steps of every copy), and the group updates each time that
+buffer is full (:class:`GroupRollouts`). This is a clever learner among naive ones in one team. Its
+rollout in progress is dropped at a checkpoint: a resumed run starts a new one.
 
 A saved policy is copied into the run directory (``seats/<agent>.pt``) when the run starts, so a resume
 does not depend on the original file. Checkpoints hold every learning group's state and every member's
@@ -35,7 +41,7 @@ import numpy as np
 from marl_core.errors import CheckpointError, ConfigError
 from marl_core.spec import TeamSpec
 
-__all__ = ["Group", "SeatedTeam", "parse_groups", "DEFAULT_GROUP"]
+__all__ = ["Group", "SeatedTeam", "GroupRollouts", "parse_groups", "DEFAULT_GROUP"]
 
 DEFAULT_GROUP = "learner"  # the name of the group of agents the seats section does not name
 
@@ -59,6 +65,13 @@ class Group:
         return f"policy {self.policy}" if self.policy is not None else f"member {self.member}"
 
 
+def _reads_state(learner: Any) -> bool:
+    """A critic that asks for the env state (which holds every seat, not the group's own)."""
+    if learner.kind == "ppo" and learner.critic == "local":
+        return False
+    return learner.kind in ("maddpg", "ppo") and learner.critic_input == "state"
+
+
 def parse_groups(cfg: Any, agents: tuple[str, ...], env_name: str) -> list[Group]:
     """The seat groups of a run config (``cfg.seats``) over the env's ``agents``, checked."""
     from marl_core.baselines import team_names
@@ -77,7 +90,7 @@ def parse_groups(cfg: Any, agents: tuple[str, ...], env_name: str) -> list[Group
         if seat.member is not None and seat.member not in team_names(env_name):
             raise ConfigError(f"seats.{key}.member = {seat.member!r} is not allowed for {env_name}; expected one "
                               f"of {', '.join(team_names(env_name))}")
-        if seat.learner is not None and seat.learner.kind == "maddpg" and seat.learner.critic_input == "state":
+        if seat.learner is not None and _reads_state(seat.learner):
             raise ConfigError(f"seats.{key}.learner.critic_input = 'state' is not allowed: the env state holds "
                               f"every seat; use 'observations' (the group's own)")
         idx = np.array([agents.index(a) for a in names])
@@ -134,6 +147,8 @@ class SeatedTeam:
                       for k, g in enumerate(self.groups) if g.member is not None}
         self._bound: dict[int, dict[str, Any]] = {}
         self.uses_state = False
+        on_policy = [g for g in self.groups if g.learner is not None and _on_policy(self.learners[g.name])]
+        self.rollouts = GroupRollouts(on_policy, self.learners, cfg.env.num_envs, spec) if on_policy else None
 
     @staticmethod
     def _policy_file(g: Group, agent: str, run_dir: Path | None) -> Path:
@@ -195,7 +210,7 @@ class SeatedTeam:
     def update(self, batch: dict[str, np.ndarray]) -> dict[str, float]:
         stats: dict[str, float] = {}
         for g in self.groups:
-            if g.learner is None:
+            if g.learner is None or _on_policy(self.learners[g.name]):
                 continue
             sub = {k: (v[:, g.index] if k in ("obs", "next_obs", "actions", "returns", "discounts") else v)
                    for k, v in batch.items() if k not in ("state", "next_state")}
@@ -207,7 +222,8 @@ class SeatedTeam:
 
     def schedule(self, env_steps: int) -> None:
         for lr in self.learners.values():
-            lr.schedule(env_steps)
+            if not _on_policy(lr):  # on-policy groups move their schedule when they update
+                lr.schedule(env_steps)
 
     def epsilon(self, env_steps: int) -> float:
         first = self.learners.get(DEFAULT_GROUP) or next(iter(self.learners.values()))
@@ -237,3 +253,47 @@ class SeatedTeam:
         """Per group: its agents, what sits there and the mean of its agents' returns."""
         return {g.name: {"agents": list(g.agents), "seated": g.what,
                          "return_mean": float(np.mean([returns[a] for a in g.agents]))} for g in self.groups}
+
+
+def _on_policy(learner: Any) -> bool:
+    return bool(getattr(learner, "on_policy", False))
+
+
+class GroupRollouts:
+    """The rollout buffers of a seated team's on-policy groups, fed from the run's own steps.
+
+    ``start(obs)`` begins every group's rollout from the team's observation; ``add(...)`` records one
+    vector step in each group's buffer (its columns) and updates a group whose buffer is full, returning
+    its statistics (keys prefixed with the group's name, as :meth:`SeatedTeam.update` does).
+
+    Shape:
+        start: obs (B, N, ...);  add: actions (B, N), learned rewards (B, N), a ``team_env.Step``,
+        next_obs (B, N, ...)
+    """
+
+    def __init__(self, groups: list[Group], learners: dict[str, Any], num_envs: int, spec: TeamSpec):
+        from marl_core.buffer import RolloutBuffer, zero_one
+
+        self.parts = []
+        for g in groups:
+            L = g.learner
+            buf = RolloutBuffer(L.rollout_steps, num_envs, len(g.agents), spec.obs_shape, spec.obs_dtype,
+                                pack=L.pack_rollout and zero_one(spec.obs_space))
+            self.parts.append((g, learners[g.name], buf))
+
+    def start(self, obs: np.ndarray) -> None:
+        for g, _, buf in self.parts:
+            buf.start(obs[:, g.index])
+
+    def add(self, actions: np.ndarray, learned: np.ndarray, st: Any, next_obs: np.ndarray,
+            env_steps: int) -> dict[str, float]:
+        stats: dict[str, float] = {}
+        for g, learner, buf in self.parts:
+            i = g.index
+            buf.add(actions[:, i], learned[:, i], st.terminated[:, i], st.end, st.obs[:, i], next_obs[:, i])
+            if buf.full:
+                learner.schedule(env_steps)
+                for k, v in learner.update(buf).items():
+                    stats[k if g.name == DEFAULT_GROUP else f"{g.name}/{k}"] = v
+                buf.start(next_obs[:, i])
+        return stats

@@ -61,6 +61,7 @@ import torch
 
 from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
+from marl_core.buffer import zero_one as _zero_one
 from marl_core.baselines import measured_teams
 from marl_core.config import RunConfig, config_hash, dump_config, load_stored_config
 from marl_core.errors import CheckpointError, ConfigError, RunDirError
@@ -358,6 +359,10 @@ class _Run:
         t0, s0 = time.perf_counter(), self.env_steps
         prioritized = getattr(L, "prioritized", False)
         act = self.acting(self.env)  # looked up here, so a wrapper set on the learner before train() is used
+        # seats with on-policy groups: the same steps feed their rollouts (a resume starts new ones)
+        rollouts = getattr(self.learner, "rollouts", None)
+        if rollouts is not None:
+            rollouts.start(col.obs)
         if self.progress is not None:  # the start: steps/s and elapsed time count from here
             self.progress(self.env_steps, T.total_steps, self.last_eval)
         while self.env_steps < T.total_steps:
@@ -375,6 +380,8 @@ class _Run:
             self.env_steps += B
             self.vec_steps += 1
             self.episodes += int(st.end.sum())
+            if rollouts is not None:
+                stats.update(rollouts.add(actions, learned, st, col.obs, self.env_steps))
             updates = 0
             if self.env_steps >= L.warmup_steps and len(self.replay) >= L.batch_size:
                 if L.replay_ratio is None:
@@ -601,10 +608,6 @@ def _reads_state(learner: Any) -> bool:
     return False
 
 
-def _zero_one(space: Any) -> bool:
-    """A uint8 Box whose every cell lies in [0, 1]: its values can be stored bit-packed."""
-    return (getattr(space, "dtype", None) == np.uint8 and bool(np.all(space.low == 0))
-            and bool(np.all(space.high == 1)))
 
 
 # ---------------------------------------------------------------------- entry points

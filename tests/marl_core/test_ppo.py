@@ -243,11 +243,6 @@ def test_learner_state_round_trip():
     assert np.array_equal(a.act(obs, True), b.act(obs, True))
 
 
-def test_ppo_refuses_seats():
-    with pytest.raises(Exception, match="seats section is not allowed with learner.kind = 'ppo'"):
-        parse_config({"learner": {"kind": "ppo"}, "seats": {"agent_0": {"member": "random"}}})
-
-
 # -------------------------------------------------------------------------------- runs end to end
 def _run_cfg(**over):
     data = {"env": {"name": "harvest_v0", "num_envs": 8,

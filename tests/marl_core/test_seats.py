@@ -212,3 +212,72 @@ def test_seats_with_n_step_returns_are_refused(tmp_path):
     data["learner"]["n_step"] = 3
     with pytest.raises(ConfigError, match=r"^learner\.n_step > 1 and learner\.prioritized are not allowed with seats"):
         train.run(parse_config(data), tmp_path / "run")
+
+
+# ------------------------------------------------------------------ an on-policy group among replay learners
+PPO_SEAT = {"learner": {"kind": "ppo", "hidden": 8, "conv_channels": [4], "rollout_steps": 5}}
+
+
+def test_a_ppo_seat_learns_from_rollouts_of_its_own_columns():
+    """The ppo group's update is held against the same learner built alone with the team's seed, given a
+    rollout of the group's columns of the same steps by hand; the replay group keeps its replay."""
+    from marl_core.buffer import RolloutBuffer
+    from marl_core.team_env import Step
+
+    cfg = parse_config(_base({"agent_2": PPO_SEAT}))
+    env = make_team_env("harvest_v0", cfg.env.params, 2, 0, with_state=False)
+    team = SeatedTeam(env.spec, cfg, seed=5, env_name="harvest_v0", run_dir=None)
+    group = team.groups[0]
+    alone = build_learner(TeamSpec(("agent_2",), env.spec.obs_space, env.spec.num_actions), group.learner, 5)
+    buf = RolloutBuffer(5, 2, 1, env.spec.obs_shape, np.uint8, pack=True)
+    rng = np.random.default_rng(0)
+    shape = (2, 3, *env.spec.obs_shape)
+    obs = rng.integers(0, 2, shape, dtype=np.uint8)
+    team.rollouts.start(obs)
+    buf.start(obs[:, [2]])
+    stats = {}
+    for t in range(5):
+        actions = rng.integers(env.spec.num_actions, size=(2, 3))
+        rewards = rng.normal(size=(2, 3)).astype(np.float32)
+        nxt = rng.integers(0, 2, shape, dtype=np.uint8)
+        end = np.array([t == 3, False])
+        st = Step(obs=nxt, state=None, rewards=rewards, terminated=np.zeros((2, 3), bool), end=end,
+                  frozen=np.zeros((2, 3), bool))
+        stats = team.rollouts.add(actions, rewards, st, nxt, env_steps=2 * (t + 1))
+        buf.add(actions[:, [2]], rewards[:, [2]], np.zeros((2, 1), bool), end, nxt[:, [2]], nxt[:, [2]])
+        assert (stats != {}) == (t == 4)  # one update, when the group's rollout is full
+    assert "agent_2/policy_loss" in stats
+    alone.update(buf)
+    mine = team.learners["agent_2"].agent_policy(0).net.state_dict()
+    theirs = alone.agent_policy(0).net.state_dict()
+    for k in mine:
+        torch.testing.assert_close(mine[k], theirs[k], rtol=1e-5, atol=1e-6)
+    # a replay batch updates the replay group only; the ppo group is left alone
+    before = {k: v.clone() for k, v in mine.items()}
+    team.update(_fake_batch(env.spec, gamma=cfg.learner.gamma))
+    after = team.learners["agent_2"].agent_policy(0).net.state_dict()
+    assert all(torch.equal(before[k], after[k]) for k in before)
+    env.close()
+
+
+def test_a_mixed_team_with_a_ppo_seat_trains_and_resumes(tmp_path):
+    cfg = parse_config(_base({"agent_0": PPO_SEAT}, steps=120))
+    out = tmp_path / "run"
+
+    def stop(steps, total, last):
+        if steps == 70:
+            raise KeyboardInterrupt
+
+    with pytest.raises(train.TrainingInterrupted):
+        train.run(cfg, out, progress=stop)
+    summary = train.resume(out)
+    assert summary["env_steps"] == 120
+    assert summary["groups"]["agent_0"]["seated"] == "learner ppo"
+    assert summary["groups"]["learner"]["seated"] == "learner idqn"
+    pol = load_policy(out / "policies" / "agent_0.pt")
+    assert pol.agent == "agent_0" and pol.sample
+
+
+def test_ppo_as_the_top_level_learner_of_seats_is_refused():
+    with pytest.raises(ConfigError, match=r"^learner\.kind = 'ppo' is not allowed with seats: .*seats\.agent_0"):
+        parse_config({**_base({"agent_0": {"member": "random"}}), "learner": {"kind": "ppo"}})
