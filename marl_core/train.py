@@ -61,8 +61,8 @@ import torch
 
 from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
-from marl_core.buffer import zero_one as _zero_one
 from marl_core.baselines import measured_teams
+from marl_core.buffer import zero_one as _zero_one
 from marl_core.config import RunConfig, config_hash, dump_config, load_stored_config
 from marl_core.errors import CheckpointError, ConfigError, RunDirError
 from marl_core.files import atomic_write, finite, write_json
