@@ -3,6 +3,7 @@ buffer (marl_core/buffer.py) and its loop (marl_core/onpolicy.py), checked again
 
 from __future__ import annotations
 
+import copy
 import json
 import math
 
@@ -199,6 +200,86 @@ def test_update_advantages_match_gae_by_hand(monkeypatch):
     assert seen["ret"] == pytest.approx([1.4608, 0.54, 1.18])
 
 
+def _adam_moments(module, opt):
+    """Each parameter with its Adam moments: after one step exp_avg = (1 - beta1) g, which pins the gradient
+    itself (Kingma & Ba 2015, Algorithm 1; torch.optim.Adam's documented update), not only its sign."""
+    return [(p.detach(), opt.state[p]["exp_avg"], opt.state[p]["exp_avg_sq"]) for p in module.parameters()]
+
+
+def _hand_ppo_step(actors, critic, obs, actions, old_logp, adv, returns, cfg, clipped=True):
+    """A PPO minibatch step written out (Schulman et al. 2017, eq. 7 with an entropy bonus; value loss
+    (V - R)^2 / 2), on copies of the nets, with one step of a fresh Adam (eps 1e-5) for each."""
+    actors, critic = copy.deepcopy(actors), copy.deepcopy(critic)
+    logits = actors(obs)
+    logp_all = torch.log_softmax(logits, dim=-1)
+    logp = logp_all.gather(-1, actions.unsqueeze(-1)).squeeze(-1)
+    ratio = torch.exp(logp - old_logp)
+    bounded = torch.clamp(ratio, 1 - cfg.clip, 1 + cfg.clip) if clipped else ratio
+    surrogate = -torch.min(ratio * adv, bounded * adv).mean()
+    entropy = -(logp_all.exp() * logp_all).sum(dim=-1).mean()
+    (surrogate - cfg.entropy_coef * entropy).backward()
+    a_opt = torch.optim.Adam(actors.parameters(), lr=cfg.lr, eps=1e-5)
+    a_opt.step()
+    value = critic(obs).squeeze(-1)
+    (0.5 * ((value - returns) ** 2).mean()).backward()
+    c_opt = torch.optim.Adam(critic.parameters(), lr=cfg.critic_lr, eps=1e-5)
+    c_opt.step()
+    return _adam_moments(actors, a_opt), _adam_moments(critic, c_opt)
+
+
+def test_one_minibatch_step_matches_a_hand_written_ppo_step():
+    spec = TeamSpec(("agent_0", "agent_1"), spaces.Box(-5, 5, (4,), np.float32), 3, None)
+    cfg = _cfg(critic="local", hidden=8, lr=0.01, critic_lr=0.02, clip=0.2, entropy_coef=0.05, grad_clip=None,
+               normalize_advantages=False)
+    learner = PPO(spec, cfg, seed=0)
+    actors0, critic0 = copy.deepcopy(learner.actors), copy.deepcopy(learner.critic)
+    gen = torch.Generator().manual_seed(1)
+    obs = torch.randn(6, 2, 4, generator=gen)
+    actions = torch.randint(3, (6, 2), generator=gen)
+    with torch.no_grad():
+        now = torch.log_softmax(actors0(obs), dim=-1).gather(-1, actions.unsqueeze(-1)).squeeze(-1)
+    # ratios e^0.5 = 1.65 (outside the clip range) on the first half, e^0.05 inside it on the second
+    old_logp = now - torch.tensor([0.5] * 3 + [0.05] * 3).unsqueeze(1)
+    adv = torch.rand(6, 2, generator=gen) + 0.1  # positive: the clipped half gives no actor gradient
+    returns = torch.randn(6, 2, generator=gen)
+    learner._step({"obs": obs.numpy(), "actions": actions.numpy(), "state": None}, old_logp, adv, returns)
+    hand_a, hand_c = _hand_ppo_step(actors0, critic0, obs, actions, old_logp, adv, returns, cfg)
+    for got, want in ((_adam_moments(learner.actors, learner.actor_opt), hand_a),
+                      (_adam_moments(learner.critic, learner.critic_opt), hand_c)):
+        for g, w in zip(got, want, strict=True):
+            for x, y in zip(g, w):
+                torch.testing.assert_close(x, y, rtol=1e-5, atol=1e-8)
+    # the unclipped objective (a tempting wrong version) does not match: the test can fail
+    wrong_a, _ = _hand_ppo_step(actors0, critic0, obs, actions, old_logp, adv, returns, cfg, clipped=False)
+    gap = max(float((g[1] - w[1]).abs().max())
+              for g, w in zip(_adam_moments(learner.actors, learner.actor_opt), wrong_a))
+    assert gap > 1e-4
+
+
+def test_joint_action_advantage_is_the_counterfactual_one(monkeypatch):
+    # Foerster et al. 2018, eq. 4 (docs/sources.md, "COMA"): A_i = Q_i(x, u) - sum_a pi_i(a|o_i) Q_i(x, (u_-i, a)),
+    # written out here from the critic and actors as they were before the update
+    spec = _spec(n=2, state=False)
+    learner = PPO(spec, _cfg(critic="joint_action", epochs=1, minibatches=1, normalize_advantages=False), seed=2)
+    rng = np.random.default_rng(3)
+    buf = RolloutBuffer(3, 2, 2, spec.obs_shape, np.uint8, pack=True)
+    obs = rng.integers(0, 2, (2, 2, *spec.obs_shape), dtype=np.uint8)
+    buf.start(obs)
+    for _ in range(3):
+        nxt = rng.integers(0, 2, obs.shape, dtype=np.uint8)
+        buf.add(rng.integers(4, size=(2, 2)), rng.normal(size=(2, 2)), np.zeros((2, 2), bool),
+                np.zeros(2, bool), nxt, nxt)
+    seen = {}
+    monkeypatch.setattr(learner, "_step", lambda d, old_logp, adv, ret: seen.update(d=d, adv=adv) or {})
+    learner.update(buf)
+    o, u = torch.as_tensor(seen["d"]["obs"]), torch.as_tensor(seen["d"]["actions"])
+    with torch.no_grad():
+        q = learner.critic(o.reshape(len(o), -1, *spec.obs_shape[1:]), u)  # (K, N, A)
+        pi = torch.softmax(learner.actors(o), dim=-1)
+    expected = q.gather(-1, u.unsqueeze(-1)).squeeze(-1) - (pi * q).sum(dim=-1)
+    torch.testing.assert_close(seen["adv"], expected, rtol=1e-5, atol=1e-6)
+
+
 @pytest.mark.parametrize("critic", ["local", "central", "joint_action"])
 @pytest.mark.parametrize("share", [False, True], ids=["own", "shared"])
 def test_every_critic_updates_and_acts_alone(critic, share, tmp_path):
@@ -304,3 +385,16 @@ def test_gymnasium_env_runs(tmp_path):
                         "log": {"gif_every": 0, "progress": False, "tensorboard": False}})
     summary = run(cfg, tmp_path / "g")
     assert summary["env_steps"] == 256
+
+
+@pytest.mark.parametrize("critic_input", ["observations", "state"])
+def test_pettingzoo_env_runs(critic_input, tmp_path):
+    # mpe2's simple_spread_v3 (a PettingZoo ParallelEnv nobody here wrote), with its own state()
+    cfg = parse_config({"env": {"name": "mpe2.simple_spread_v3:parallel_env", "num_envs": 2,
+                                "params": {"N": 2, "max_cycles": 10, "continuous_actions": False}},
+                        "learner": {"kind": "ppo", "critic": "joint_action", "critic_input": critic_input,
+                                    "rollout_steps": 10, "hidden": 16},
+                        "train": {"total_steps": 60, "eval_every": 60, "checkpoint_every": 60, "eval_episodes": 2},
+                        "log": {"gif_every": 0, "progress": False, "tensorboard": False}})
+    summary = run(cfg, tmp_path / "pz")
+    assert summary["env_steps"] == 60 and set(summary["returns"]) == {"agent_0", "agent_1"}
