@@ -294,6 +294,15 @@ def _batch_size(default: Any) -> Any:
     return Field(default, ge=1, description="transitions sampled from replay per update")
 
 
+def _hidden() -> Any:
+    return Field(128, description="width of the MLP layers")
+
+
+def _conv_channels(what: str) -> Any:
+    return Field(default_factory=lambda: [16, 32], min_length=1,
+                 description=f"output channels of each conv layer of the {what}")
+
+
 def _end_not_above_start(cfg: BaseModel, schedule: str) -> None:
     """A decaying schedule ends at or below where it starts (``<schedule>_end <= <schedule>_start``)."""
     start, end = getattr(cfg, f"{schedule}_start"), getattr(cfg, f"{schedule}_end")
@@ -343,10 +352,8 @@ class _LearnerBase(BaseModel):
                                     "agent's network (of the shared network under parameter sharing) and of "
                                     "each critic network; clipped one network at a time, so independent "
                                     "learners stay independent (null: no clipping)")
-    hidden: _PositiveInt = Field(128, description="width of the MLP layers")
-    conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
-                                             description="output channels of each conv layer of the "
-                                             "grid-window encoder")
+    hidden: _PositiveInt = _hidden()
+    conv_channels: list[_PositiveInt] = _conv_channels("grid-window encoder")
     conv_strides: list[_PositiveInt] | None = Field(None, min_length=1, description="stride of each conv "
                                                     "layer of the grid-window encoder, one per entry of "
                                                     "conv_channels; left out: idqn 2 for every layer, maddpg "
@@ -548,10 +555,8 @@ class PPOConfig(BaseModel):
     grad_clip: float | None = Field(0.5, gt=0.0, description="largest gradient norm per update of each "
                                     "actor (the shared one under parameter sharing) and each critic network "
                                     "(null: no clipping)")
-    hidden: _PositiveInt = Field(128, description="width of the MLP layers")
-    conv_channels: list[_PositiveInt] = Field(default_factory=lambda: [16, 32], min_length=1,
-                                             description="output channels of each conv layer of the "
-                                             "grid-window encoders (actors and critic)")
+    hidden: _PositiveInt = _hidden()
+    conv_channels: list[_PositiveInt] = _conv_channels("grid-window encoders (actors and critic)")
     conv_strides: list[_PositiveInt] | None = Field(None, min_length=1, description="stride of each conv "
                                                     "layer; left out: 2 for every layer; null: 1 for the "
                                                     "first layer, 2 for the others")

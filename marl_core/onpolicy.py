@@ -77,12 +77,4 @@ def run_loop(run: Any, sigint: Any) -> None:
             reward_sums[:] = 0.0
             log_steps = 0
             run.scalar("train/env_steps_per_s", (run.env_steps - s0) / max(time.perf_counter() - t0, 1e-9))
-        if run.env_steps >= next_eval or run.env_steps >= T.total_steps:
-            next_eval = (run.env_steps // T.eval_every + 1) * T.eval_every
-            run.evaluate(final=run.env_steps >= T.total_steps)
-        if run.env_steps >= next_ckpt or run.env_steps >= T.total_steps:
-            next_ckpt = (run.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
-            run.save_checkpoint()
-        run._between_steps = True
-        if run.progress is not None:
-            run.progress(run.env_steps, T.total_steps, run.last_eval)
+        next_eval, next_ckpt = run.milestones(next_eval, next_ckpt)

@@ -11,7 +11,7 @@ from torch import nn
 
 __all__ = ["dqn_target", "dueling_combine", "huber", "linear_schedule", "gumbel_softmax_st", "polyak_update",
            "one_hot", "td_priorities", "set_lr_scale", "gae", "clipped_surrogate", "counterfactual_baseline",
-           "explained_variance", "normalise"]
+           "explained_variance", "normalise", "clip_per_network"]
 
 
 def dqn_target(returns: torch.Tensor, discounts: torch.Tensor, next_q_target: torch.Tensor,
@@ -161,3 +161,11 @@ def normalise(x: torch.Tensor, eps: float = 1e-8) -> torch.Tensor:
     """``(x - mean) / (std + eps)`` over every element (advantage normalisation, common practice, no
     source)."""
     return (x - x.mean()) / (x.std(unbiased=False) + eps)
+
+
+def clip_per_network(networks, max_norm: float | None) -> None:
+    """Clip the gradient of each network in ``networks`` to norm ``max_norm`` on its own (None: no
+    clipping), so that independent learners stay independent. Common practice (no source)."""
+    if max_norm:
+        for net in networks:
+            torch.nn.utils.clip_grad_norm_(net.parameters(), max_norm)

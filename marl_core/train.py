@@ -415,15 +415,23 @@ class _Run:
                 self.scalar("train/replay_ratio", self.measured_replay_ratio())
                 rate = (self.env_steps - s0) / max(time.perf_counter() - t0, 1e-9)
                 self.scalar("train/env_steps_per_s", rate)
-            if self.env_steps >= next_eval or self.env_steps >= T.total_steps:
-                next_eval = (self.env_steps // T.eval_every + 1) * T.eval_every
-                self.evaluate(final=self.env_steps >= T.total_steps)
-            if self.env_steps >= next_ckpt or self.env_steps >= T.total_steps:
-                next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
-                self.save_checkpoint()
-            self._between_steps = True
-            if self.progress is not None:
-                self.progress(self.env_steps, T.total_steps, self.last_eval)
+            next_eval, next_ckpt = self.milestones(next_eval, next_ckpt)
+
+    def milestones(self, next_eval: int, next_ckpt: int) -> tuple[int, int]:
+        """Between two steps of a loop: evaluate and checkpoint when their step has come (and at the end of
+        the budget), then report progress; returns the next evaluation and checkpoint steps."""
+        T = self.cfg.train
+        done = self.env_steps >= T.total_steps
+        if self.env_steps >= next_eval or done:
+            next_eval = (self.env_steps // T.eval_every + 1) * T.eval_every
+            self.evaluate(final=done)
+        if self.env_steps >= next_ckpt or done:
+            next_ckpt = (self.env_steps // T.checkpoint_every + 1) * T.checkpoint_every
+            self.save_checkpoint()
+        self._between_steps = True
+        if self.progress is not None:
+            self.progress(self.env_steps, T.total_steps, self.last_eval)
+        return next_eval, next_ckpt
 
     def finish(self) -> dict[str, Any]:
         if self.last_eval is None:

@@ -423,23 +423,28 @@ def measure_bare(cfg: Any, seconds: float) -> dict[str, Any]:
     env.close()
     learner = build_learner(spec, cfg.learner, cfg.train.seed)
     batch = _fixed_batch(spec, cfg.learner, cfg.train.seed)
-    flops = update_flops(learner, batch)
-    update = learner.update
+    return {**_time_updates(learner.update, batch, seconds, warm_min=5, repeats_min=3),
+            "flops": update_flops(learner, batch)}
+
+
+def _time_updates(update: Any, data: Any, seconds: float, warm_min: int, repeats_min: int) -> dict[str, Any]:
+    """``update(data)`` in a tight loop: a warm-up of at least ``warm_min`` calls (and a tenth of
+    ``seconds``), then :data:`_BARE_REPEATS` timed blocks of the same number of calls."""
     t, warm = time.perf_counter(), 0
-    while warm < 5 or time.perf_counter() - t < 0.1 * seconds:
-        update(batch)
+    while warm < warm_min or time.perf_counter() - t < 0.1 * seconds:
+        update(data)
         warm += 1
     per_update = (time.perf_counter() - t) / warm
-    n = max(3, int(0.9 * seconds / _BARE_REPEATS / per_update))
+    n = max(repeats_min, int(0.9 * seconds / _BARE_REPEATS / per_update))
     rates, cpu_rates = [], []
     for _ in range(_BARE_REPEATS):
         t, c = time.perf_counter(), time.process_time()
         for _ in range(n):
-            update(batch)
+            update(data)
         rates.append(n / (time.perf_counter() - t))
         cpu_rates.append(n / (time.process_time() - c))
     return {"best": max(rates), "median": sorted(rates)[len(rates) // 2], "repeats": rates,
-            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm, "flops": flops}
+            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm}
 
 
 def update_flops(learner: Any, batch: dict[str, Any]) -> int:
@@ -664,23 +669,8 @@ def measure_bare_ppo(cfg: Any, seconds: float) -> dict[str, Any]:
     rollout = filled_rollout(spec, cfg.learner, cfg.env.num_envs, seed,
                              with_state=learner.uses_state)
     flops = update_flops(learner, rollout)
-    update = learner.update
-    t, warm = time.perf_counter(), 0
-    while warm < 2 or time.perf_counter() - t < 0.1 * seconds:
-        update(rollout)
-        warm += 1
-    per_update = (time.perf_counter() - t) / warm
-    n = max(2, int(0.9 * seconds / _BARE_REPEATS / per_update))
-    rates, cpu_rates = [], []
-    for _ in range(_BARE_REPEATS):
-        t, c = time.perf_counter(), time.process_time()
-        for _ in range(n):
-            update(rollout)
-        rates.append(n / (time.perf_counter() - t))
-        cpu_rates.append(n / (time.process_time() - c))
-    return {"best": max(rates), "median": sorted(rates)[len(rates) // 2], "repeats": rates,
-            "cpu_best": max(cpu_rates), "updates_per_repeat": n, "warmup_updates": warm,
-            "flops": flops, "vector_step_s": vector_step_s}
+    return {**_time_updates(learner.update, rollout, seconds, warm_min=2, repeats_min=2), "flops": flops,
+            "vector_step_s": vector_step_s}
 
 
 def bench_ppo(row: str, args: argparse.Namespace) -> dict[str, Any]:

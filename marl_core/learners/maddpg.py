@@ -52,6 +52,7 @@ from marl_core.nets import AgentNets, Encoder
 from marl_core.policy import AgentPolicy
 from marl_core.spec import TeamSpec
 from marl_core.targets import (
+    clip_per_network,
     gumbel_softmax_st,
     linear_schedule,
     one_hot,
@@ -235,7 +236,7 @@ class MADDPG:
         critic_loss = ((td ** 2).mean(dim=1) * weights).mean()
         self.critic_opt.zero_grad(set_to_none=True)
         critic_loss.backward()
-        self._clip(self.critic.nets)
+        clip_per_network(self.critic.nets, self.cfg.grad_clip)
         self.critic_opt.step()
 
         polyak_update(self.target_critic, self.critic, cfg.tau)
@@ -264,15 +265,10 @@ class MADDPG:
         finally:
             self.critic.requires_grad_(True)
         self.critic_opt.zero_grad(set_to_none=True)  # no gradient stays on the critic for a later step
-        self._clip(self.actors.groups())
+        clip_per_network(self.actors.groups(), self.cfg.grad_clip)
         self.actor_opt.step()
         polyak_update(self.target_actors, self.actors, cfg.tau)
         return float(actor_loss.detach())
-
-    def _clip(self, groups) -> None:
-        if self.cfg.grad_clip:
-            for g in groups:
-                torch.nn.utils.clip_grad_norm_(g.parameters(), self.cfg.grad_clip)
 
     # ------------------------------------------------------------------ state
     def state_dict(self) -> dict[str, Any]:

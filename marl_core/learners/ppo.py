@@ -53,6 +53,7 @@ from marl_core.nets import AgentNets, Encoder
 from marl_core.policy import AgentPolicy
 from marl_core.spec import TeamSpec
 from marl_core.targets import (
+    clip_per_network,
     clipped_surrogate,
     counterfactual_baseline,
     explained_variance,
@@ -300,7 +301,7 @@ class PPO:
         actor_loss = surrogate - cfg.entropy_coef * entropy
         self.actor_opt.zero_grad(set_to_none=True)
         actor_loss.backward()
-        self._clip(self.actors.groups())
+        clip_per_network(self.actors.groups(), self.cfg.grad_clip)
         self.actor_opt.step()
 
         c = self._critic(obs, d["state"], actions)
@@ -309,15 +310,11 @@ class PPO:
         value_loss = 0.5 * ((c - returns) ** 2).mean()
         self.critic_opt.zero_grad(set_to_none=True)
         value_loss.backward()
-        self._clip(self.critic.groups() if self.critic_kind == "local" else [self.critic])
+        clip_per_network(self.critic.groups() if self.critic_kind == "local" else [self.critic],
+                         self.cfg.grad_clip)
         self.critic_opt.step()
         return {"policy_loss": float(surrogate.detach()), "value_loss": float(value_loss.detach()),
                 "entropy": float(entropy.detach()), "approx_kl": float(kl), "clip_fraction": float(clipped)}
-
-    def _clip(self, groups) -> None:
-        if self.cfg.grad_clip:
-            for g in groups:
-                torch.nn.utils.clip_grad_norm_(g.parameters(), self.cfg.grad_clip)
 
     # ------------------------------------------------------------------ state
     def state_dict(self) -> dict[str, Any]:
