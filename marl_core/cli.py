@@ -65,7 +65,8 @@ def _parser() -> argparse.ArgumentParser:
     t.add_argument("--resume", metavar="RUN_DIR", help="continue a run from its last checkpoint")
     t.add_argument("--quiet", action="store_true", help="no progress bar; one plain line per evaluation (also "
                    "the default when stdout is not a terminal)")
-    v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off")
+    v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off (ppo: as "
+                       "learner.eval_policy says)")
     v.add_argument("run_dir")
     v.add_argument("--episodes", type=int, help="episodes to play, by the learned team and by every baseline "
                    "team on the same seeds (default: the run's train.eval_episodes)")
@@ -371,7 +372,10 @@ def _evaluate(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(finite(res), indent=2, sort_keys=True))
     else:
-        print(f"run: {args.run_dir}  ({res['eval_episodes']} episodes, exploration off)")
+        L = train.load_run(args.run_dir).learner
+        how = ("actions drawn from the learned policies" if getattr(L, "eval_policy", None) == "sample"
+               else "exploration off")
+        print(f"run: {args.run_dir}  ({res['eval_episodes']} episodes, {how})")
         print(_table(res))
         if args.gif:
             print(f"GIF: {args.gif}")

@@ -15,7 +15,7 @@ import pytest
 import torch
 
 from envs.matrix_v0 import MatrixGame
-from marl_core import lola
+from marl_core.learners import lola
 
 GAMMA = 0.96  # Foerster et al. 2018, from memory (docs/sources.md, "LOLA")
 # IPD payoffs (C,C) -1, (C,D) -3, (D,C) 0, (D,D) -2: Foerster et al. 2018, from memory (docs/sources.md, "LOLA")
