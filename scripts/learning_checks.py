@@ -20,6 +20,9 @@ played on the same episodes. ``pass`` says whether the check's bar holds:
   team's; the ``landmark_walk`` heuristic is reported beside it.
 * ``ppo_quickstart``: ``configs/harvest_ppo.yaml`` (the quick start's game, on-policy learner with a central
   critic); bar: the median efficiency beats the strongest non-learning team's median.
+* ``ppo_cartpole``: ``configs/cartpole_ppo.yaml`` (the on-policy learner on CartPole-v1, 100 evaluation
+  episodes, greedy); bar: as ``cartpole``.
+* ``ppo_spread``: ``configs/spread_ppo.yaml`` (central critic over mpe2's state); bar: as ``spread``.
 
 The CI tests (``tests/marl_core/test_learning.py``) run shorter versions of these. Runs reproduce bit for
 bit only on the same CPU and torch build; read the spread over seeds, not one seed.
@@ -51,6 +54,8 @@ CHECKS = {
     "cleanup": ("cleanup_tiny_idqn.yaml", {}, "efficiency", ("beats_strongest", None)),
     "spread": ("spread_maddpg.yaml", {}, "return_mean", ("beats_team", "noop")),
     "ppo_quickstart": ("harvest_ppo.yaml", {}, "efficiency", ("beats_strongest", None)),
+    "ppo_cartpole": ("cartpole_ppo.yaml", {}, "return_mean", ("iqm_at_least", 475.0)),
+    "ppo_spread": ("spread_ppo.yaml", {}, "return_mean", ("beats_team", "noop")),
 }
 
 
