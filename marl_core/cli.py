@@ -400,7 +400,8 @@ def _ablate(args: argparse.Namespace) -> int:
               f"failed {counts.get('failed', 0)}, pending {counts.get('pending', 0)}{left}", flush=True)
 
     counts = ablate(args.spec, args.out, workers=args.workers, backend=args.backend, address=args.address,
-                    retry_failed=args.retry_failed, progress=progress)
+                    retry_failed=args.retry_failed, progress=progress,
+                    notify=lambda line: print(f"note: {line}", flush=True))
     print(f"sweep: {args.out}  done {counts.get('done', 0)}, failed {counts.get('failed', 0)}")
     if counts.get("failed"):
         print(f"failed runs: {command()} status {args.out}; rerun them with --retry-failed")

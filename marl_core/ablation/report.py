@@ -263,11 +263,17 @@ def _load(sweep_dir: str | os.PathLike) -> dict[str, Any]:
         rows = ledger.rows()
         baseline = ledger.get_meta("baseline")
         spec_text = ledger.get_meta("spec")
+        sources_text = ledger.get_meta("sources")
     try:
         spec = json.loads(spec_text) if spec_text else None
     except ValueError:
         spec = None
+    try:
+        sources = json.loads(sources_text) if sources_text else None
+    except ValueError:
+        sources = None
     return {"sweep_dir": str(sweep), "baseline": baseline, "spec": spec if isinstance(spec, dict) else None,
+            "sources": sources if isinstance(sources, dict) else None,
             "runs": [_load_run(sweep, row) for row in rows]}
 
 
@@ -377,6 +383,79 @@ def _not_better(arm: str, metric: str, entry: dict[str, Any]) -> dict[str, Any]:
                 f"`{team}` team's {_num(value)} ({where})")
     return {"arm": arm, "metric": metric, "mean": entry["mean"], "mean_ci": entry["mean_ci"], "n": entry["n"],
             "team": team, "team_mean": value, "reason": why, "sentence": text}
+
+
+def _flat(data: Any, prefix: str = "") -> dict[str, Any]:
+    """A nested config mapping as ``{dotted key: value}``."""
+    if not isinstance(data, dict):
+        return {}
+    out: dict[str, Any] = {}
+    for key, value in data.items():
+        if isinstance(value, dict) and value:
+            out.update(_flat(value, f"{prefix}{key}."))
+        else:
+            out[f"{prefix}{key}"] = value
+    return out
+
+
+def _asked(source: str | None) -> bool:
+    return source is not None and (source == "set" or source == "axes" or source.startswith("arms."))
+
+
+def _config_differences(arms: list[str], done: dict[str, list[dict]], baseline: str | None,
+                        sources: dict[str, dict[str, str]] | None) -> dict[str, list[dict[str, Any]]]:
+    """Arm -> every resolved config key whose value differs from the baseline arm's, with why.
+
+    ``why`` is ``asked`` (the spec sets the key in this arm, the baseline or ``set``), ``kind default``
+    (a learner key the spec did not set, where the two arms run different learner kinds: each takes its
+    own kind's default) or ``inherited`` (the spec did not ask for the difference). A learner key that a
+    run kept from a base config written for another learner kind (the ledger's ``sources`` say
+    ``inherited``) is listed even where its value equals the baseline's, since it is not a setting chosen
+    for this learner. Sweeps recorded before the ledger kept ``sources`` are judged from the run's
+    overrides alone."""
+    def config(a: str) -> dict[str, Any] | None:
+        runs = [r for r in done.get(a, []) if isinstance(r.get("config"), dict)]
+        if not runs:
+            return None
+        flat = _flat(runs[0]["config"])
+        flat.pop(_SEED_KEY, None)
+        return flat
+
+    def source(a: str, key: str) -> str | None:
+        if sources is not None:
+            return (sources.get(a) or {}).get(key)
+        runs = done.get(a, [])
+        return "arms" if runs and key in runs[0]["overrides"] else None
+
+    out: dict[str, list[dict[str, Any]]] = {}
+    ref = config(baseline) if baseline is not None else None
+    if ref is None:
+        return out
+    for a in arms:
+        mine = config(a)
+        if a == baseline or mine is None:
+            continue
+        kinds_differ = mine.get("learner.kind") != ref.get("learner.kind")
+        rows = []
+        for key in sorted(set(mine) | set(ref)):
+            value, other = mine.get(key, _MISSING), ref.get(key, _MISSING)
+            kept = source(a, key) == "inherited"
+            if value == other and not kept:
+                continue
+            if kept:
+                why = "inherited"
+            elif _asked(source(a, key)) or _asked(source(baseline, key)) or (
+                    sources is None and (source(a, key) or source(baseline, key))):
+                why = "asked"
+            elif key.startswith("learner.") and kinds_differ:
+                why = "kind default"
+            else:
+                why = "inherited"
+            rows.append({"key": key, "value": None if value is _MISSING else value,
+                         "baseline_value": None if other is _MISSING else other,
+                         "absent": value is _MISSING, "baseline_absent": other is _MISSING, "why": why})
+        out[a] = rows
+    return out
 
 
 def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
@@ -530,9 +609,16 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     missing = [m for m in expect if m not in measures]
     if missing:
         warns.append(f"The spec expects a direction for {', '.join(missing)}, which no done run records.")
+    differences = _config_differences(arms, done, baseline, data.get("sources"))
+    for a, rows in differences.items():
+        inherited = [r["key"] for r in rows if r["why"] == "inherited"]
+        if inherited:
+            warns.append(f"`{a}` differs from the baseline `{baseline}` in config keys the spec did not ask "
+                         f"for (inherited): {', '.join(inherited)}; see \"Config differences\".")
     return {
         "sweep_dir": data["sweep_dir"], "baseline": baseline, "arms": arm_info, "arm_order": arms,
         "comparisons": comparisons, "curves": curves, "axes": axes, "findings": findings,
+        "config_differences": differences,
         "findings_along": along, "expect": expect,
         "baseline_teams": teams, "not_better": not_better, "coverage": stats.MEASURED_COVERAGE,
         "interval_methods": stats.INTERVAL_METHODS,
@@ -844,6 +930,35 @@ def _findings_lines(summary: dict[str, Any]) -> list[str]:
     return lines
 
 
+_WHY = {"asked": "asked for by the spec", "kind default": "the arm's learner kind's default",
+        "inherited": "**inherited**: the spec did not ask for it"}
+
+
+def _differences_lines(summary: dict[str, Any]) -> list[str]:
+    """The report's "Config differences" section."""
+    diffs, base = summary.get("config_differences") or {}, summary["baseline"]
+    if not diffs:
+        return []
+    L = ["## Config differences from the baseline arm\n",
+         f"Every resolved config key (the seed aside) in which an arm's runs differ from the baseline "
+         f"`{_md(base)}`'s, and why: {'; '.join(f'*{k}*: {v}' for k, v in _WHY.items())}. A learner key "
+         "kept from a base config written for another learner kind is listed as inherited even where it "
+         "equals the baseline's.\n"]
+    n_inherited = sum(r["why"] == "inherited" for rows in diffs.values() for r in rows)
+    L.append(f"Inherited differences: **{n_inherited}**" + (" (no confound from the config)." if not
+                                                             n_inherited else "; read those arms with care.")
+             + "\n")
+    L.append("| arm | key | this arm | baseline | why |")
+    L.append("|---|---|---|---|---|")
+    for a, rows in diffs.items():
+        for r in rows:
+            mine = "(absent)" if r["absent"] else f"`{_md(_short(r['value']))}`"
+            theirs = "(absent)" if r["baseline_absent"] else f"`{_md(_short(r['baseline_value']))}`"
+            L.append(f"| `{_md(a)}` | `{r['key']}` | {mine} | {theirs} | {r['why']} |")
+    L.append("")
+    return L
+
+
 def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: bool = True) -> str:
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
     test_name = _TEST_NAMES[summary["test"]]
@@ -911,6 +1026,7 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     else:
         add("None.")
     add("")
+    L.extend(_differences_lines(summary))
 
     teams = summary["baseline_teams"]
     add("## Table 1: results per arm\n")

@@ -6,6 +6,15 @@ raises is recorded as failed with its traceback and the others go on; a run whos
 with its exit code. Rerunning the same command skips finished runs and restarts interrupted ones (resuming
 from their last checkpoint when they have one); ``retry_failed`` reruns the failures too.
 
+One sweep directory, one ``ablate`` at a time: ``ablate`` holds an exclusive lock on
+``out/ablate.lock`` (``fcntl.flock``, with its process id written inside) for as long as it runs. A second
+``ablate`` on the same directory, from another terminal or machine sharing the directory, refuses in one
+line naming the process that holds the lock, before it reads the ledger. The operating system releases the
+lock when its process ends, however it ends, so a lock file left behind by a killed sweep (even
+``SIGKILL``) is simply taken over by the next ``ablate``. Where ``fcntl`` does not exist (Windows) no lock
+is taken. ``status`` and ``report`` only read, and need no lock. (A network file system must support
+``flock`` for the lock to hold across machines.)
+
 Backends:
 
 * ``local`` (default): up to ``workers`` child processes at once (``spawn`` start method, one torch thread
@@ -35,9 +44,11 @@ from marl_core.ablation.spec import Sweep, load_spec
 from marl_core.errors import MissingExtraError, RunDirError
 from marl_core.hints import command
 
-__all__ = ["ablate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE"]
+__all__ = ["ablate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE", "LOCK_NAME"]
 
 BACKENDS = ("local", "ray")
+#: the lock file of a sweep directory, held by the ``ablate`` process that runs it
+LOCK_NAME = "ablate.lock"
 HEADLINE = "efficiency"  # the metric shown in status tables
 SUMMARY_METRICS = ("env_steps", "episodes", "return_mean", "efficiency", "equality", "sustainability", "peace")
 
@@ -96,13 +107,53 @@ def _child(config: dict[str, Any], run_dir: str, conn: Any) -> None:
 
 
 # ---------------------------------------------------------------------- the sweep
-def _prepare(spec: str | Path, out: Path, retry_failed: bool) -> tuple[Sweep, Ledger]:
+def _lock(out: Path) -> Any:
+    """Take the sweep directory's lock (see the module docstring); return the open lock file, or None
+    where the platform has no ``flock``. Raises RunDirError naming the holder when another process has it."""
+    try:
+        import fcntl
+    except ImportError:  # Windows: no lock
+        return None
+    handle = open(out / LOCK_NAME, "a+")  # noqa: SIM115 - held open until the sweep ends
+    try:
+        fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except OSError:
+        handle.seek(0)
+        holder = handle.read().strip() or "another process"
+        handle.close()
+        raise RunDirError(f"sweep directory '{out}' is in use by ablate {holder}; wait for it to finish or "
+                          "stop it, then run this command again (finished runs are kept)") from None
+    handle.seek(0)
+    handle.truncate()
+    handle.write(f"process {os.getpid()} on {os.uname().nodename if hasattr(os, 'uname') else 'this host'}")
+    handle.flush()
+    return handle
+
+
+def _unlock(handle: Any) -> None:
+    if handle is not None:
+        handle.close()  # closing the file releases the flock; the file stays for the next holder
+
+
+def _prepare(spec: str | Path, out: Path, retry_failed: bool) -> tuple[Sweep, Ledger, Any]:
     sweep = load_spec(spec)
     ledger_path = out / "ledger.sqlite"
     if out.exists() and not out.is_dir():
         raise RunDirError(f"sweep directory '{out}' is a file")
-    if out.is_dir() and any(out.iterdir()) and not ledger_path.is_file():
+    if (out.is_dir() and any(out.iterdir()) and not ledger_path.is_file()
+            and not (out / LOCK_NAME).is_file()):
         raise RunDirError(f"'{out}' exists and is not a sweep directory (no ledger.sqlite); choose a new --out")
+    out.mkdir(parents=True, exist_ok=True)
+    lock = _lock(out)
+    try:
+        ledger = _open_ledger(sweep, out, ledger_path, retry_failed)
+    except BaseException:
+        _unlock(lock)
+        raise
+    return sweep, ledger, lock
+
+
+def _open_ledger(sweep: Sweep, out: Path, ledger_path: Path, retry_failed: bool) -> Ledger:
     if ledger_path.is_file():
         ledger = Ledger(ledger_path)
         known = ledger.get_meta("spec_hash")
@@ -117,11 +168,13 @@ def _prepare(spec: str | Path, out: Path, retry_failed: bool) -> tuple[Sweep, Le
         ledger.set_meta("spec", json.dumps(sweep.source, sort_keys=True, default=str))
         ledger.set_meta("baseline", sweep.baseline)
         ledger.set_meta("created", str(time.time()))
+    if ledger.get_meta("sources") is None:  # also for a sweep started before the ledger kept it
+        ledger.set_meta("sources", json.dumps(sweep.sources, sort_keys=True))
     ledger.register(sweep.runs, run_dir_of=lambda rid: str(out / "runs" / rid))
     _reconcile(ledger, out)
     if retry_failed:
         ledger.requeue(states=("failed",))
-    return sweep, ledger
+    return ledger
 
 
 def _reconcile(ledger: Ledger, out: Path) -> None:
@@ -140,8 +193,11 @@ def _reconcile(ledger: Ledger, out: Path) -> None:
 
 def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backend: str = "local",
            address: str | None = None, retry_failed: bool = False,
-           progress: Progress | None = None) -> dict[str, int]:
-    """Run every unfinished run of ``spec`` into the sweep directory ``out``; return the final counts."""
+           progress: Progress | None = None, notify: Callable[[str], None] | None = None) -> dict[str, int]:
+    """Run every unfinished run of ``spec`` into the sweep directory ``out``; return the final counts.
+
+    ``notify`` receives the spec's one-line notices (:attr:`~marl_core.ablation.spec.Sweep.notices`, e.g.
+    a base learner key kept across a switch of ``learner.kind``) before anything runs."""
     if backend not in BACKENDS:
         raise RunDirError(f"--backend = {backend!r} is not allowed; expected one of {', '.join(BACKENDS)}")
     if workers is not None and workers < 1:
@@ -149,7 +205,9 @@ def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backen
     if address is not None and backend != "ray":
         raise RunDirError("--address is only used with --backend ray")
     out = Path(out)
-    sweep, ledger = _prepare(spec, out, retry_failed)
+    sweep, ledger, lock = _prepare(spec, out, retry_failed)
+    for line in sweep.notices if notify is not None else ():
+        notify(line)
     try:
         configs = {r.run_id: r.config for r in sweep.runs}
         todo = [row for row in ledger.rows() if row["state"] == "pending"]
@@ -162,6 +220,7 @@ def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backen
         return ledger.counts()
     finally:
         ledger.close()
+        _unlock(lock)
 
 
 def repeat(config: str | Path, seeds: list[int], out: str | Path, overrides: dict[str, Any] | None = None,

@@ -39,11 +39,20 @@ ordered arm-major, then by seed. A run's id is :func:`marl_core.config.config_ha
 config (the seed included), so the same run has the same id in any process or session, whichever spec
 it came from.
 
-Switching the learner kind: the base config may hold keys that only its learner kind has
-(``learner.double`` for idqn, ``learner.tau`` for maddpg). When ``set``, an arm or an axis sets
-``learner.kind`` to another kind, the base's learner keys that the new kind lacks are dropped from that
-run; keys the kinds share (``lr``, ``gamma``, ``batch_size`` ...) carry over. A key written in ``set``,
-``arms`` or ``axes`` is never dropped: one that does not belong to the run's kind is an error.
+Switching the learner kind: a base config's learner keys are settings chosen for its own kind (a DQN's
+learning rate, batch size and discount are not a centralised critic's). When ``set``, an arm or an axis
+sets ``learner.kind`` to another kind, that run takes the new kind's default for every learner key the
+spec does not set, and never the base's value, even for keys the kinds share (``lr``, ``gamma``,
+``batch_size`` ...). Only the settings that are not learning settings are kept from the base
+(:data:`KEPT_ACROSS_KINDS`: ``share_parameters``, ``torch_threads``); where such a key keeps a value
+other than the new kind's default, :attr:`Sweep.notices` says so in one line (``ablate`` prints it). A
+key written in ``set``, ``arms`` or ``axes`` always applies: one that does not belong to the run's kind is
+an error.
+
+Where each value comes from: :attr:`Sweep.sources` maps every arm to the resolved learner, env and
+reward keys that are not defaults, each with its source (``set``, ``arms.<name>``, ``axes``, ``base``, or
+``inherited`` for a base value kept across a kind switch); the sweep's ledger records it and the report's
+table of config differences marks every difference the spec did not ask for.
 
 Checks, all before anything runs (each a one-line :class:`marl_core.errors.ConfigError`):
 
@@ -86,7 +95,8 @@ from marl_core.config import (
 )
 from marl_core.errors import ConfigError
 
-__all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "load_spec", "parse_spec", "sweep_table"]
+__all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "KEPT_ACROSS_KINDS", "load_spec", "parse_spec",
+           "sweep_table", "flat_config"]
 
 #: The keys a spec may have.
 SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test",
@@ -100,6 +110,11 @@ _SECTIONS = ("env", "learner", "train", "log")
 _PARAMS = "env.params."
 _SEED_KEY = "train.seed"
 _ONLY_ARM = "base"
+#: learner keys a run keeps from the base config when an arm switches ``learner.kind``: they choose how
+#: the team is built and run, not how it learns; every other learner key takes the new kind's default.
+KEPT_ACROSS_KINDS: tuple[str, ...] = ("share_parameters", "torch_threads")
+#: the source of a base value kept across a kind switch (see :attr:`Sweep.sources`)
+INHERITED = "inherited"
 
 
 @dataclass(frozen=True)
@@ -153,6 +168,12 @@ class Sweep:
         expect: the spec's ``expect``, measure -> ``increases`` / ``decreases`` / ``no_change`` (empty
             without one). Not part of ``spec_hash``.
         against: the spec's ``against``: the non-learning team a one-arm study is compared with, or None.
+        sources: arm -> dotted key -> where its value comes from (``set``, ``arms.<name>``, ``axes``,
+            ``base``, or ``inherited``: a base learner key kept across a switch of ``learner.kind``), for
+            every key the spec or the base wrote (``train.seed`` aside); a key that is absent took its
+            default (a learner key: its kind's default).
+        notices: one line per arm that keeps a base learner value across a kind switch (see the module
+            docstring); empty when there is none.
     """
 
     arms: list[Arm]
@@ -169,6 +190,8 @@ class Sweep:
     smoke_test: bool = False
     expect: dict[str, str] = field(default_factory=dict)
     against: str | None = None
+    sources: dict[str, dict[str, str]] = field(default_factory=dict)
+    notices: list[str] = field(default_factory=list)
 
     @property
     def arm_names(self) -> list[str]:
@@ -291,21 +314,64 @@ def _kind_of(base: dict[str, Any]) -> Any:
     return learner.get("kind", "idqn") if isinstance(learner, dict) else "idqn"
 
 
-def _build(base: dict[str, Any], steps: list[dict[str, Any]]) -> dict[str, Any]:
-    """The config mapping of one run: ``base`` with each step's overrides applied in order; the base's
-    learner keys of another kind are dropped when the steps switch ``learner.kind``."""
+def _build(base: dict[str, Any], steps: list[dict[str, Any]]) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The config mapping of one run, and the base's learner values kept across a kind switch.
+
+    ``base`` with each step's overrides applied in order; when the steps switch ``learner.kind``, the
+    base's learner keys are dropped (the new kind's defaults apply) except :data:`KEPT_ACROSS_KINDS`,
+    which are returned as ``{key: value}``."""
     data = copy.deepcopy(base)
     kind = _kind_of(base)
     for overrides in steps:
         kind = overrides.get("learner.kind", kind)
     learner = data.get("learner")
-    allowed = _learner_keys().get(kind) if isinstance(kind, str) else None
-    if kind != _kind_of(base) and allowed is not None and isinstance(learner, dict):
-        data["learner"] = {k: v for k, v in learner.items() if k in allowed}
+    kept: dict[str, Any] = {}
+    if kind != _kind_of(base) and isinstance(learner, dict):
+        allowed = _learner_keys().get(kind) if isinstance(kind, str) else None
+        kept = {k: v for k, v in learner.items()
+                if k in KEPT_ACROSS_KINDS and (allowed is None or k in allowed)}
+        data["learner"] = dict(kept)
     for overrides in steps:
         for key, value in overrides.items():
             set_dotted(data, key, copy.deepcopy(value))
-    return data
+    set_here = {k for overrides in steps for k in overrides}
+    return data, {f"learner.{k}": v for k, v in kept.items() if f"learner.{k}" not in set_here}
+
+
+def flat_config(data: Any, prefix: str = "") -> dict[str, Any]:
+    """A nested config mapping as ``{dotted key: value}`` (lists and scalars are leaves)."""
+    if not isinstance(data, dict):
+        return {prefix[:-1]: data} if prefix else {}
+    out: dict[str, Any] = {}
+    for key, value in data.items():
+        if isinstance(value, dict) and value:
+            out.update(flat_config(value, f"{prefix}{key}."))
+        else:
+            out[f"{prefix}{key}"] = value
+    return out
+
+
+def _sources(base: dict[str, Any], shared: dict[str, Any], origin: dict[str, str],
+             kept: dict[str, Any], switched: bool) -> dict[str, str]:
+    """Dotted key -> where one arm's value comes from (see :attr:`Sweep.sources`); ``switched``: the arm
+    runs another learner kind than the base's."""
+    out: dict[str, str] = {}
+    for key in flat_config(base):
+        if key.startswith("learner.") and switched and key not in kept:
+            continue  # dropped: the run's kind takes its own default
+        out[key] = INHERITED if key in kept else "base"
+    out.update(dict.fromkeys(shared, "set"))
+    out.update(origin)
+    out.pop(_SEED_KEY, None)
+    return out
+
+
+def _kept_default(kind: Any, key: str) -> Any:
+    """The default of learner ``key`` under learner ``kind`` (None when unknown)."""
+    for row in schema_table():
+        if row["key"] == key and row["kind"] in (None, kind):
+            return row["default"]
+    return None
 
 
 def _mentioned(message: str, keys: list[str]) -> str | None:
@@ -490,11 +556,15 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     # ---- runs, arm-major then seed; every config validated
     runs: list[RunSpec] = []
     first_arm_of: dict[str, str] = {}
+    sources: dict[str, dict[str, str]] = {}
+    notices: list[str] = []
     for arm in arms:
+        kept: dict[str, Any] = {}
         for seed in seeds:
             where_of = {**dict.fromkeys(shared, "set"), **origin[arm.name]}
             try:
-                cfg = parse_config(_build(base, [shared, arm.overrides, {_SEED_KEY: seed}]))
+                data, kept = _build(base, [shared, arm.overrides, {_SEED_KEY: seed}])
+                cfg = parse_config(data)
             except ConfigError as err:
                 key = _mentioned(str(err), list(where_of))
                 hint = f" (from {where_of[key]})" if key else ""
@@ -506,6 +576,13 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
             first_arm_of[run_id] = arm.name
             overrides = {**copy.deepcopy(shared), **copy.deepcopy(arm.overrides), _SEED_KEY: seed}
             runs.append(RunSpec(run_id, arm.name, seed, overrides, cfg))
+        kind = {**shared, **arm.overrides}.get("learner.kind", _kind_of(base))
+        kept = {k: v for k, v in kept.items() if v != _kept_default(kind, k)}  # the rest is the default
+        sources[arm.name] = _sources(base, shared, origin[arm.name], kept, kind != _kind_of(base))
+        for key, value in kept.items():
+            notices.append(f"arm {arm.name!r}: {key} = {_show(value)} is kept from the base config "
+                           f"(learner.kind {_kind_of(base)}), not the {kind} default; set it in the arm to "
+                           "choose")
 
     if against is not None:
         if len(arms) > 1:
@@ -523,7 +600,7 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     spec_hash = hashlib.sha256(digest.encode("utf-8")).hexdigest()[:12]
     return Sweep(arms=arms, runs=runs, baseline=baseline, seeds=seeds, axes=axes, spec_hash=spec_hash,
                  source=source, combine=combine, shared=shared, base=base, base_path=base_path,
-                 smoke_test=smoke_test, expect=expect, against=against)
+                 smoke_test=smoke_test, expect=expect, against=against, sources=sources, notices=notices)
 
 
 def _read_expect(value: Any) -> dict[str, str]:

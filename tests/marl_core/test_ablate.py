@@ -337,6 +337,8 @@ def test_sigkill_mid_sweep_then_rerun_completes(tmp_path):
     assert not (cut_dir / "summary.json").exists()  # an orphan would have finished it by now
     done_mtimes = {r: (sweep / "runs" / r / "summary.json").stat().st_mtime_ns for r in done_before}
     config_mtime = (cut_dir / "config.yaml").stat().st_mtime_ns
+    # the killed sweep's lock file is left behind, naming it; the OS released its lock (runner.py docstring)
+    assert f"process {proc.pid} " in (sweep / "ablate.lock").read_text()
 
     # the same command again completes the sweep
     again = subprocess.run(cmd, cwd=REPO, capture_output=True, text=True, timeout=300)
@@ -360,6 +362,41 @@ def test_sigkill_mid_sweep_then_rerun_completes(tmp_path):
     _assert_ledger_matches_run_dirs(sweep, total_steps=1500)  # no row running or pending
     with Ledger(ledger_path) as ledger:
         assert ledger.counts() == {"pending": 0, "running": 0, "done": 4, "failed": 0}
+
+
+def test_a_second_ablate_on_the_same_sweep_refuses_and_runs_nothing_twice(tmp_path, capsys):
+    q = _quick()
+    base = _tiny_base()
+    base["train"].update(total_steps=600, eval_every=200, checkpoint_every=200)
+    spec = _write_spec(tmp_path / "two.yaml", {"base": base, "seeds": [0, 1], "axes": q["axes"],
+                                               "baseline": q["baseline"]})
+    sweep = tmp_path / "sweep"
+    cmd = [sys.executable, "-m", "marl_core.cli", "ablate", str(spec), "--out", str(sweep), "--workers", "1"]
+    with open(tmp_path / "first.out", "w") as out, open(tmp_path / "first.err", "w") as err:
+        first = subprocess.Popen(cmd, cwd=REPO, stdout=out, stderr=err)
+    try:
+        deadline = time.monotonic() + 120
+        while not any(s == "running" for s, _ in _peek(sweep / "ledger.sqlite").values()):
+            assert first.poll() is None, (tmp_path / "first.err").read_text()
+            assert time.monotonic() < deadline
+            time.sleep(0.05)
+        # the same command from a second terminal, as a user would start it
+        code = main(["ablate", str(spec), "--out", str(sweep), "--workers", "1"])
+        err = capsys.readouterr().err.strip()
+        assert code == 2 and "\n" not in err, err
+        assert err == (f"marl-core: error: sweep directory '{sweep}' is in use by ablate process {first.pid} on "
+                       f"{os.uname().nodename}; wait for it to finish or stop it, then run this command again "
+                       "(finished runs are kept)")
+        assert first.wait(timeout=300) == 0, (tmp_path / "first.err").read_text()
+    finally:
+        if first.poll() is None:
+            first.kill()
+            first.wait()
+    rows = _rows(sweep)
+    assert len(rows) == 4 and all(r["state"] == "done" and r["attempts"] == 1 for r in rows.values()), rows
+    # the lock is free again once the first sweep has ended: the same command now has nothing to do
+    assert main(["ablate", str(spec), "--out", str(sweep), "--workers", "1"]) == 0
+    assert all(r["attempts"] == 1 for r in _rows(sweep).values())
 
 
 # ------------------------------------------------------------------------------------- failing runs

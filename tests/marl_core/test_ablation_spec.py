@@ -11,7 +11,7 @@ from pathlib import Path
 import pytest
 
 from marl_core.ablation.spec import Arm, RunSpec, Sweep, load_spec, parse_spec, sweep_table
-from marl_core.config import config_hash, load_config
+from marl_core.config import config_hash, load_config, parse_config
 from marl_core.errors import ConfigError
 
 REPO = Path(__file__).resolve().parents[2]
@@ -298,16 +298,35 @@ def test_a_key_in_both_a_named_arm_and_an_axis_is_rejected():
 
 # ---------------------------------------------------------------------------------- learner kinds
 
-def test_switching_kind_drops_the_base_keys_of_the_other_kind():
-    # harvest_idqn.yaml writes idqn-only keys (double, n_step, eps_*); the maddpg arm must not inherit them
+def test_switching_kind_takes_the_new_kinds_defaults_not_the_bases_values():
+    # harvest_idqn.yaml sets the DQN's lr, n_step, train_every ...: settings chosen for idqn. The maddpg arm
+    # takes maddpg's default for every learner key, even those both kinds have (lr, gamma, batch_size)
     sweep = parse_spec({"base": "harvest_idqn.yaml", "seeds": [0], "axes": {"learner.kind": ["idqn", "maddpg"]},
                         "baseline": "kind=idqn"}, CONFIGS)
     idqn, maddpg = (r.config for r in sweep.runs)
     base = load_config(HARVEST_IDQN)
     assert idqn.learner == base.learner
-    assert maddpg.learner.kind == "maddpg"
-    assert maddpg.learner.lr == base.learner.lr  # a key both kinds have carries over
-    assert maddpg.learner.tau == 0.01  # maddpg's default
+    assert maddpg.learner == parse_config({"learner": {"kind": "maddpg"}}).learner
+    assert base.learner.train_every == 2 and maddpg.learner.train_every == 1  # maddpg's default, not idqn's
+    assert sweep.notices == []  # share_parameters and torch_threads are the defaults: nothing to say
+    assert sweep.sources["kind=maddpg"]["learner.kind"] == "axes"
+    assert "learner.lr" not in sweep.sources["kind=maddpg"]  # absent: the kind's default
+    assert sweep.sources["kind=idqn"]["learner.lr"] == "base"
+
+
+def test_a_kept_base_key_across_a_kind_switch_is_said_in_one_line():
+    base = {**BASE, "learner": {"kind": "idqn", "share_parameters": True, "lr": 1e-4}}
+    sweep = parse_spec({"base": base, "seeds": [0], "arms": {"q": {}, "m": {"learner.kind": "maddpg"},
+                                                             "p": {"learner.kind": "ppo",
+                                                                   "learner.share_parameters": False}},
+                        "baseline": "q"})
+    q, m, p = (r.config.learner for r in sweep.runs)
+    assert m.share_parameters is True and m.lr == 1e-3  # kept / maddpg's default
+    assert p.share_parameters is False
+    assert sweep.notices == ["arm 'm': learner.share_parameters = True is kept from the base config "
+                             "(learner.kind idqn), not the maddpg default; set it in the arm to choose"]
+    assert sweep.sources["m"]["learner.share_parameters"] == "inherited"
+    assert sweep.sources["p"]["learner.share_parameters"] == "arms.p"
 
 
 def test_switching_kind_back_drops_the_maddpg_keys():

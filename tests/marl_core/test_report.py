@@ -536,3 +536,70 @@ def test_report_files_have_the_usual_mode(sweep):
     modes = {p.name: stat.S_IMODE(p.stat().st_mode) for p in
              [out / "report.md", out / "runs.csv", *sorted((out / "figures").glob("*.png"))[:1]]}
     assert set(modes.values()) == {0o666 & ~mask}, modes  # marl_core/files.py docstring
+
+
+# ------------------------------------------------------------------------------ config differences
+def _sweep_from_spec(root: Path, spec: dict) -> Path:
+    """A sweep directory whose ledger and run configs come from a real parsed spec (the runs' metrics are
+    invented, demo only), as ``ablate`` would record them."""
+    from marl_core.ablation.spec import parse_spec
+    from marl_core.config import config_to_dict
+
+    sweep = parse_spec(spec, Path(__file__).resolve().parents[2] / "configs")
+    root.mkdir(parents=True)
+    ledger = Ledger(root / "ledger.sqlite")
+    ledger.set_meta("spec", json.dumps(spec))
+    ledger.set_meta("baseline", sweep.baseline)
+    ledger.set_meta("sources", json.dumps(sweep.sources))
+    ledger.register(sweep.runs, run_dir_of=lambda rid: str(root / "runs" / rid))
+    for k, run in enumerate(sweep.runs):
+        write_run(root / "runs" / run.run_id, config_to_dict(run.config), final_values(k, run.seed),
+                  random_values(0))
+        ledger.mark_running(run.run_id, worker="test")
+        ledger.mark_done(run.run_id, final_metrics(json.loads((root / "runs" / run.run_id / "summary.json")
+                                                              .read_text())))
+    ledger.close()
+    return root
+
+
+def test_switching_the_learner_kind_shows_kind_defaults_and_no_inherited_difference(tmp_path):
+    root = _sweep_from_spec(tmp_path / "kinds", {
+        "base": "harvest_idqn.yaml", "seeds": [0, 1], "set": {"train.total_steps": 500},
+        "arms": {"dqn": {}, "critic": {"learner.kind": "maddpg", "learner.lr": 3e-4}}, "baseline": "dqn"})
+    s = report_summary(root, reps=REPS)
+    rows = {r["key"]: r for r in s["config_differences"]["critic"]}
+    assert rows["learner.kind"]["why"] == "asked" and rows["learner.lr"]["why"] == "asked"
+    assert (rows["learner.gamma"]["value"], rows["learner.gamma"]["baseline_value"]) == (0.95, 0.99)
+    assert rows["learner.gamma"]["why"] == "kind default"  # maddpg's own default, config.py's table
+    assert rows["learner.double"]["absent"] and rows["learner.double"]["why"] == "kind default"
+    assert not [r for r in rows.values() if r["why"] == "inherited"]
+    text = (write_report(root, reps=REPS) / "report.md").read_text()
+    assert "## Config differences from the baseline arm" in text
+    assert "Inherited differences: **0** (no confound from the config)." in text
+    assert "| `critic` | `learner.gamma` | `0.95` | `0.99` | kind default |" in text
+
+
+def test_a_base_value_kept_across_a_kind_switch_is_marked_inherited_even_when_equal(tmp_path):
+    base = {"env": {"name": "harvest_v0", "params": {"num_agents": 2}},
+            "learner": {"kind": "idqn", "share_parameters": True}, "train": {"total_steps": 500}}
+    root = _sweep_from_spec(tmp_path / "kept", {
+        "base": base, "seeds": [0, 1], "arms": {"dqn": {}, "critic": {"learner.kind": "maddpg"}},
+        "baseline": "dqn"})
+    s = report_summary(root, reps=REPS)
+    rows = {r["key"]: r for r in s["config_differences"]["critic"]}
+    assert rows["learner.share_parameters"]["why"] == "inherited"
+    assert rows["learner.share_parameters"]["value"] is True is rows["learner.share_parameters"]["baseline_value"]
+    assert any("`critic` differs from the baseline `dqn` in config keys the spec did not ask for (inherited): "
+               "learner.share_parameters" in w for w in s["warnings"])
+
+
+def test_an_unasked_difference_outside_the_learner_is_inherited(tmp_path):
+    # a sweep recorded without 'sources' (older ledgers): judged from the runs' overrides alone
+    root = make_sweep(tmp_path / "old", arms=ARMS[:2], seeds=(0, 1), failed=None, nan=None)
+    config = yaml.safe_load((root / "runs" / "run1s0" / "config.yaml").read_text())
+    for seed in (0, 1):
+        config["env"]["params"]["view_radius"] = 7  # differs from the baseline, asked for by nobody
+        config["train"]["seed"] = seed
+        (root / "runs" / f"run1s{seed}" / "config.yaml").write_text(yaml.safe_dump(config))
+    rows = {r["key"]: r["why"] for r in report_summary(root, reps=REPS)["config_differences"][ARMS[1]]}
+    assert rows == {"env.params.tag_cost": "asked", "env.params.view_radius": "inherited"}
