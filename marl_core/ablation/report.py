@@ -458,6 +458,45 @@ def _config_differences(arms: list[str], done: dict[str, list[dict]], baseline: 
     return out
 
 
+#: the measures the findings over training test (docs/studies.md, "Findings over training")
+OVER_TRAINING: tuple[str, ...] = ("efficiency", "sustainability", "peace")
+
+
+def _over_training(arms: list[str], done: dict[str, list[dict]], measures: list[str]) -> dict[str, Any]:
+    """Arm -> measure -> the dip-and-recovery test over the arm's seeds (docs/studies.md): each seed's
+    result (``stats.dip_and_recovery`` on the seed's whole evaluation curve), the count of seeds that show
+    it, the median and the Student t interval of the mean of d1, d2 and F - E, and the verdict."""
+    out: dict[str, Any] = {}
+    for a in arms:
+        out[a] = {}
+        for m in measures:
+            per_seed = []
+            for r in done[a]:
+                if not r["curve"]:
+                    continue
+                steps = sorted(r["curve"])
+                res = stats.dip_and_recovery(steps, [_float(r["curve"][s].get(m)) for s in steps])
+                if res is not None:
+                    per_seed.append({"seed": r["seed"], **res})
+            entry: dict[str, Any] = {"seeds": per_seed, "judged": len(per_seed),
+                                     "shows": int(sum(x["shows"] for x in per_seed))}
+            for name, values in (("d1", [x["d1"] for x in per_seed]), ("d2", [x["d2"] for x in per_seed]),
+                                 ("f_minus_e", [x["final"] - x["early"] for x in per_seed])):
+                arr = np.array(values, dtype=float)
+                entry[name] = {"median": float(np.median(arr)) if arr.size else math.nan,
+                               "ci": stats.t_interval(arr, CONFIDENCE) if arr.size else (math.nan, math.nan)}
+            lo1, lo2, hi_fe = entry["d1"]["ci"][0], entry["d2"]["ci"][0], entry["f_minus_e"]["ci"][1]
+            if lo1 > 0 and lo2 > 0 and 2 * entry["shows"] > entry["judged"]:
+                verdict = "dip and recovery"
+            elif lo1 > 0 and hi_fe < 0:
+                verdict = "a dip without recovery"
+            else:
+                verdict = "no dip claimed"
+            entry["verdict"] = verdict if entry["judged"] >= 2 else "too few curves to judge"
+            out[a][m] = entry
+    return out
+
+
 def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                holm_family: str) -> dict[str, Any]:
     runs = data["runs"]
@@ -542,7 +581,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                 continue
             values = np.array([[_float(r["curve"][s].get(m)) for s in steps] for r in with_curve])
             mean, low, high = stats.mean_band(values, CONFIDENCE)  # Student t at each step; NaN below 2 seeds
-            curves[a][m] = {"mean": mean.tolist(), "ci_low": low.tolist(), "ci_high": high.tolist()}
+            curves[a][m] = {"mean": mean.tolist(), "ci_low": low.tolist(), "ci_high": high.tolist(),
+                            "per_seed": values.tolist(), "seeds": [r["seed"] for r in with_curve]}
 
     # ---- warnings
     total = len(runs)
@@ -609,6 +649,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     missing = [m for m in expect if m not in measures]
     if missing:
         warns.append(f"The spec expects a direction for {', '.join(missing)}, which no done run records.")
+    over_training = (_over_training(arms, done, [m for m in OVER_TRAINING if m in measures])
+                     if spec.get("over_training") is True else {})
     differences = _config_differences(arms, done, baseline, data.get("sources"))
     for a, rows in differences.items():
         inherited = [r["key"] for r in rows if r["why"] == "inherited"]
@@ -618,7 +660,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     return {
         "sweep_dir": data["sweep_dir"], "baseline": baseline, "arms": arm_info, "arm_order": arms,
         "comparisons": comparisons, "curves": curves, "axes": axes, "findings": findings,
-        "config_differences": differences,
+        "config_differences": differences, "over_training": over_training,
         "findings_along": along, "expect": expect,
         "baseline_teams": teams, "not_better": not_better, "coverage": stats.MEASURED_COVERAGE,
         "interval_methods": stats.INTERVAL_METHODS,
@@ -959,6 +1001,43 @@ def _differences_lines(summary: dict[str, Any]) -> list[str]:
     return L
 
 
+def _over_training_lines(summary: dict[str, Any]) -> list[str]:
+    """The report's "Findings over training" section (when the spec asks for it)."""
+    found = summary.get("over_training") or {}
+    if not found:
+        return []
+    pct = f"{summary['confidence']:.0%}"
+    L = ["## Findings over training\n",
+         "The dip-and-recovery test of docs/studies.md, \"Findings over training\", on each seed's whole "
+         "evaluation curve: E = mean of the evaluations in the first 15% of env steps, F = in the last 15%, "
+         "M = the lowest 3-point running mean between; d1 = E − M (the dip), d2 = F − M (the recovery). A "
+         "seed shows it when both exceed 3× the noise of a 3-point mean (σ₃, from successive differences; "
+         "a pure-noise curve shows it in 2.6% of seeds). The arm finds dip and recovery when the "
+         f"{pct} Student t intervals of the mean d1 and d2 both lie above 0 and most seeds show it; a dip "
+         "without recovery when d1's lies above 0 and F − E's below 0. Per-seed curves are drawn thin under "
+         "the mean in the curve figures.\n",
+         f"| arm | measure | seeds showing | d1 median [{pct} CI of mean] | d2 median [{pct} CI] | "
+         f"F − E median [{pct} CI] | verdict |",
+         "|---|---|---|---|---|---|---|"]
+    for a, per in found.items():
+        for m, e in per.items():
+            cells = [_with_ci(e[k]["median"], e[k]["ci"]) for k in ("d1", "d2", "f_minus_e")]
+            L.append(f"| `{_md(a)}` | {m} | {e['shows']} of {e['judged']} | " + " | ".join(cells)
+                     + f" | {e['verdict']} |")
+    L.append("")
+    L.append("Per seed (E, M at its env step, F):\n")
+    L.append("| arm | measure | seed | E | M (at step) | F | σ₃ | shows |")
+    L.append("|---|---|---|---|---|---|---|---|")
+    for a, per in found.items():
+        for m, e in per.items():
+            for x in e["seeds"]:
+                L.append(f"| `{_md(a)}` | {m} | {x['seed']} | {_num(x['early'])} | {_num(x['dip'])} "
+                         f"({int(x['at']):,}) | {_num(x['final'])} | {_num(x['sigma3'])} | "
+                         f"{'yes' if x['shows'] else 'no'} |")
+    L.append("")
+    return L
+
+
 def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: bool = True) -> str:
     arms, info, base = summary["arm_order"], summary["arms"], summary["baseline"]
     test_name = _TEST_NAMES[summary["test"]]
@@ -994,6 +1073,7 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
 
     add("## Findings\n")
     L.extend(_findings_lines(summary))
+    L.extend(_over_training_lines(summary))
     add("## Notes on method\n")
     add(f"- **Test:** {_test_sentence(summary['test'])}")
     add("- **IQM:** interquartile mean (Agarwal et al. 2021), the mean of the middle 50% of seeds "
@@ -1168,6 +1248,8 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
         c = curves[a]
         steps = np.asarray(c["env_steps"], dtype=float)
         lw = 2.4 if a == base else 1.6
+        for row in c[m].get("per_seed", []):  # each seed, thin, under the mean
+            ax.plot(steps, row, color=colours[a], lw=0.6, alpha=0.35)
         ax.plot(steps, c[m]["mean"], color=colours[a], lw=lw,
                 label=f"{a} (baseline)" if a == base else a)
         ax.fill_between(steps, c[m]["ci_low"], c[m]["ci_high"], color=colours[a], alpha=0.18, lw=0)
@@ -1183,7 +1265,8 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
                            label="random team (per arm, dashed)" if i == 0 else None)
     ax.set_xlabel("updates" if summary.get("learners") == ["lola"] else "environment steps")
     ax.set_ylabel(m)
-    ax.set_title(f"{m} during training: mean over seeds, {summary['confidence']:.0%} Student t band",
+    ax.set_title(f"{m} during training: each seed (thin), mean over seeds, {summary['confidence']:.0%} "
+                 "Student t band",
                  fontsize=10)
     ax.grid(alpha=0.3)
     _legend(ax)

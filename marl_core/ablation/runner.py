@@ -161,6 +161,8 @@ def _open_ledger(sweep: Sweep, out: Path, ledger_path: Path, retry_failed: bool)
             ledger.close()
             raise RunDirError(f"sweep directory '{out}' holds a different spec (hash {known}, this one "
                               f"{sweep.spec_hash}); choose a new --out")
+        # the same runs: keep the spec as now written (expect, over_training, smoke_test are not hashed)
+        ledger.set_meta("spec", json.dumps(sweep.source, sort_keys=True, default=str))
     else:
         (out / "runs").mkdir(parents=True, exist_ok=True)
         ledger = Ledger(ledger_path)

@@ -22,6 +22,8 @@ A spec (every key but ``base`` and ``seeds`` may be left out)::
                                       # baseline; the report says whether the data agree (default none)
     against: restrained               # one arm only: the findings compare it with this non-learning team,
                                       # paired within each run (default: no such comparison)
+    over_training: true               # the report adds findings over training: per-seed curves and the
+                                      # dip-and-recovery test of docs/studies.md (default false)
 
 Arms and their names, in the order written:
 
@@ -100,7 +102,7 @@ __all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "KEPT_ACROSS_KINDS", "load_sp
 
 #: The keys a spec may have.
 SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test",
-                              "expect", "against")
+                              "expect", "against", "over_training")
 #: ``expect`` values: the direction a study expects a measure to move (marl_core.ablation.report findings)
 EXPECT_DIRECTIONS: tuple[str, ...] = ("increases", "decreases", "no_change")
 #: what ``expect`` may name: the report's metrics and behaviour measures
@@ -172,6 +174,8 @@ class Sweep:
             ``base``, or ``inherited``: a base learner key kept across a switch of ``learner.kind``), for
             every key the spec or the base wrote (``train.seed`` aside); a key that is absent took its
             default (a learner key: its kind's default).
+        over_training: the spec's ``over_training``: the report adds findings over training. Not part of
+            ``spec_hash``.
         notices: one line per arm that keeps a base learner value across a kind switch (see the module
             docstring); empty when there is none.
     """
@@ -192,6 +196,7 @@ class Sweep:
     against: str | None = None
     sources: dict[str, dict[str, str]] = field(default_factory=dict)
     notices: list[str] = field(default_factory=list)
+    over_training: bool = False
 
     @property
     def arm_names(self) -> list[str]:
@@ -494,6 +499,9 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     if not isinstance(smoke_test, bool):
         raise ConfigError(f"smoke_test = {_show(smoke_test)} is not allowed: expected true or false")
     expect = _read_expect(data.get("expect"))
+    over_training = data.get("over_training", False)
+    if not isinstance(over_training, bool):
+        raise ConfigError(f"over_training = {_show(over_training)} is not allowed: expected true or false")
     against = data.get("against")
     if against is not None and (not isinstance(against, str) or not against):
         raise ConfigError(f"against = {_show(against)} is not allowed: expected the name of a non-learning "
@@ -600,7 +608,8 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     spec_hash = hashlib.sha256(digest.encode("utf-8")).hexdigest()[:12]
     return Sweep(arms=arms, runs=runs, baseline=baseline, seeds=seeds, axes=axes, spec_hash=spec_hash,
                  source=source, combine=combine, shared=shared, base=base, base_path=base_path,
-                 smoke_test=smoke_test, expect=expect, against=against, sources=sources, notices=notices)
+                 smoke_test=smoke_test, expect=expect, against=against, sources=sources, notices=notices,
+                 over_training=over_training)
 
 
 def _read_expect(value: Any) -> dict[str, str]:

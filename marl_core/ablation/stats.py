@@ -58,7 +58,7 @@ import numpy as np
 
 from marl_core.errors import ConfigError
 
-__all__ = ["iqm", "t_interval", "iqm_interval", "welch_interval", "mean_band", "stratified_bootstrap_ci",
+__all__ = ["dip_and_recovery", "DIP_EARLY", "DIP_FINAL", "DIP_FACTOR", "iqm", "t_interval", "iqm_interval", "welch_interval", "mean_band", "stratified_bootstrap_ci",
            "summarize", "welch_p", "mannwhitney_p", "holm", "probability_of_improvement", "compare", "trend", "paired",
            "min_seeds_warning", "coverage_table", "INTERVAL_METHODS", "COVERAGE_KINDS", "COVERAGE_NS",
            "COVERAGE_TRIALS", "COVERAGE_BOOTSTRAP_TRIALS", "COVERAGE_BOOTSTRAP_REPS", "COVERAGE_SEED",
@@ -588,6 +588,53 @@ def trend(x: Any, y: Any) -> dict[str, Any]:
         warnings.simplefilter("ignore")
         result = sps.spearmanr(xs, ys)
     return {"n": n, "rho": float(result.statistic), "p_value": float(result.pvalue)}
+
+
+#: the dip-and-recovery test's windows (fractions of a run's env steps) and its noise factor (ours, no
+#: source); docs/studies.md, "Findings over training", defines the test
+DIP_EARLY, DIP_FINAL, DIP_FACTOR = 0.15, 0.85, 3.0
+#: the fewest evaluations a curve needs for the test
+DIP_MIN_POINTS = 10
+
+
+def dip_and_recovery(steps: Any, values: Any, early: float = DIP_EARLY, final: float = DIP_FINAL,
+                     factor: float = DIP_FACTOR) -> dict[str, float] | None:
+    """One seed's dip-and-recovery on one measure's evaluation curve (higher is better), as docs/studies.md,
+    "Findings over training", defines it.
+
+    With T the last step: E = mean of the evaluations at t <= ``early``·T, F = mean of those at
+    t >= ``final``·T, M = the minimum over the evaluations between of the 3-point running mean (each
+    averaged with its two neighbours); d1 = E - M (the dip), d2 = F - M (the recovery). One evaluation's
+    noise is ``sigma`` = sd(successive differences)/sqrt(2) (von Neumann), a 3-point mean's
+    ``sigma3`` = sigma/sqrt(3); ``shows`` is 1.0 when d1 and d2 both exceed ``factor``·sigma3, else 0.0.
+
+    Returns None when the curve cannot be judged: fewer than :data:`DIP_MIN_POINTS` finite evaluations, or
+    an empty window (NaN evaluations are dropped first)."""
+    t = np.asarray(steps, dtype=float)
+    x = np.asarray(values, dtype=float)
+    if t.shape != x.shape or t.ndim != 1:
+        raise ConfigError(f"dip_and_recovery: steps and values must be 1-D of one length; got shapes "
+                          f"{t.shape} and {x.shape}")
+    keep = np.isfinite(x) & np.isfinite(t)
+    t, x = t[keep], x[keep]
+    order = np.argsort(t, kind="stable")
+    t, x = t[order], x[order]
+    if x.size < DIP_MIN_POINTS:
+        return None
+    total = t[-1]
+    first, last = t <= early * total, t >= final * total
+    middle = np.flatnonzero(~first & ~last)
+    # every middle point has both neighbours on the curve: the windows are not empty
+    if not first.any() or not last.any() or middle.size == 0:
+        return None
+    smooth = np.array([x[i - 1:i + 2].mean() for i in middle])
+    e, f, m = float(x[first].mean()), float(x[last].mean()), float(smooth.min())
+    sigma = float(np.std(np.diff(x), ddof=1) / math.sqrt(2.0))
+    sigma3 = sigma / math.sqrt(3.0)
+    d1, d2 = e - m, f - m
+    shows = float(d1 > factor * sigma3 and d2 > factor * sigma3)
+    return {"early": e, "final": f, "dip": m, "d1": d1, "d2": d2, "sigma": sigma, "sigma3": sigma3,
+            "shows": shows, "at": float(t[middle[int(np.argmin(smooth))]])}
 
 
 def min_seeds_warning(n_arm: int, n_base: int, test: str) -> str | None:

@@ -603,3 +603,23 @@ def test_an_unasked_difference_outside_the_learner_is_inherited(tmp_path):
         (root / "runs" / f"run1s{seed}" / "config.yaml").write_text(yaml.safe_dump(config))
     rows = {r["key"]: r["why"] for r in report_summary(root, reps=REPS)["config_differences"][ARMS[1]]}
     assert rows == {"env.params.tag_cost": "asked", "env.params.view_radius": "inherited"}
+
+
+def test_findings_over_training_apply_the_dip_and_recovery_test_to_each_seed(tmp_path):
+    root = _sweep_from_spec(tmp_path / "dip", {"base": "harvest_idqn.yaml", "seeds": [0, 1, 2],
+                                               "set": {"train.total_steps": 500}, "over_training": True})
+    dip = [1.0, 1.0, 1.0, 0.8, 0.6, 0.4, 0.3, 0.35, 0.5, 0.7, 0.8, 0.9, 0.9, 0.9, 0.9, 0.9, 0.9, 0.9, 0.9, 0.9]
+    for k, run in enumerate(sorted((root / "runs").iterdir())):  # invented curves (demo only)
+        with open(run / "metrics.jsonl", "w") as f:
+            for i, v in enumerate(dip):
+                v = v + (0.01 if i % 2 else -0.01) * (k + 1)
+                f.write(json.dumps({"env_steps": 100 * (i + 1), "efficiency": v, "sustainability": 100 * v,
+                                    "peace": 2.0, "return_mean": v}) + "\n")
+    s = report_summary(root, reps=REPS)
+    eff = s["over_training"]["base"]["efficiency"]
+    assert eff["judged"] == 3 and eff["shows"] == 3 and eff["verdict"] == "dip and recovery"
+    by_seed = {x["seed"]: x for x in eff["seeds"]}
+    assert by_seed[0]["at"] == 700  # the lowest 3-point mean is centred on the 7th evaluation
+    assert s["over_training"]["base"]["peace"]["verdict"] == "no dip claimed"  # a flat curve
+    text = (write_report(root, reps=REPS) / "report.md").read_text()
+    assert "## Findings over training" in text and "| `base` | efficiency | 3 of 3 |" in text

@@ -16,6 +16,7 @@ import pytest
 import scipy.stats
 from statsmodels.stats.multitest import multipletests
 
+from marl_core.ablation import stats
 from marl_core.ablation.stats import (
     COVERAGE_BOOTSTRAP_TRIALS,
     COVERAGE_KINDS,
@@ -569,3 +570,35 @@ def test_stats_module_does_not_import_torch_or_matplotlib():
             "print(any(m.split('.')[0] in ('torch', 'matplotlib', 'scipy') for m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"  # documented: numpy only at import, scipy lazily
+
+
+# ------------------------------------------------------------------------------ dip and recovery
+def test_dip_and_recovery_on_a_hand_computed_curve():
+    # docs/studies.md, "Findings over training" (our definition). 20 evaluations at t = 1..20 (T = 20):
+    # early t <= 3, final t >= 17, middle 4..16. Invented curve: 1.0 early, down to 0.2 at t = 10, back to
+    # 0.9 at the end, with a small alternation so that the noise is not zero.
+    x = [1.0, 1.0, 1.0, 0.8, 0.6, 0.5, 0.4, 0.3, 0.25, 0.2, 0.25, 0.3, 0.5, 0.7, 0.8, 0.85, 0.9, 0.9, 0.9, 0.9]
+    x = [v + (0.01 if i % 2 else -0.01) for i, v in enumerate(x)]
+    res = stats.dip_and_recovery(range(1, 21), x)
+    e = (0.99 + 1.01 + 0.99) / 3  # t = 1, 2, 3
+    f = (0.89 + 0.91 + 0.89 + 0.91) / 4  # t = 17..20
+    m = (0.24 + 0.21 + 0.24) / 3  # t = 9, 10, 11 (offsets -, +, -): the lowest 3-point mean in the middle
+    assert res["early"] == pytest.approx(e) and res["final"] == pytest.approx(f)
+    assert res["dip"] == pytest.approx(m) and res["at"] == 10.0
+    assert (res["d1"], res["d2"]) == (pytest.approx(e - m), pytest.approx(f - m))
+    diffs = np.diff(np.array(x))
+    sigma = np.std(diffs, ddof=1) / math.sqrt(2)  # von Neumann's successive-difference estimator
+    assert res["sigma"] == pytest.approx(sigma) and res["sigma3"] == pytest.approx(sigma / math.sqrt(3))
+    assert res["shows"] == 1.0
+
+
+def test_dip_and_recovery_is_rare_on_noise_and_absent_on_trends():
+    rng = np.random.default_rng(0)
+    steps = np.arange(1, 21)
+    shows = [stats.dip_and_recovery(steps, rng.normal(size=20))["shows"] for _ in range(4000)]
+    assert np.mean(shows) < 0.05  # docs/studies.md: 2.6% measured over 20,000 curves
+    rising = stats.dip_and_recovery(steps, np.linspace(0, 1, 20) + rng.normal(0, 0.01, 20))
+    falling = stats.dip_and_recovery(steps, np.linspace(1, 0, 20) + rng.normal(0, 0.01, 20))
+    assert rising["shows"] == 0.0 and rising["d1"] < 0
+    assert falling["shows"] == 0.0 and falling["d2"] < 0
+    assert stats.dip_and_recovery(steps[:9], np.zeros(9)) is None  # fewer than 10 evaluations
