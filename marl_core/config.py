@@ -806,6 +806,11 @@ def _fill_seat_replay_keys(seats: dict[str, Any], top: Any) -> dict[str, Any]:
         if isinstance(seat, dict) and isinstance(seat.get("learner"), dict) and \
                 seat["learner"].get("kind") != "ppo":  # a ppo seat learns from its own rollouts, no replay
             own = dict(seat["learner"])
+            for key, plain in (("n_step", 1), ("prioritized", False)):
+                if key in own and own[key] != plain:
+                    raise _own_error(f"seats.{name}.learner.{key} = {own[key]!r} is not allowed: the seats share "
+                                     f"one replay of 1-step transitions drawn uniformly, so a seat learner "
+                                     f"cannot use it; leave it out (allowed: {plain!r})")
             for key in SHARED_REPLAY_KEYS:
                 if key in own and own[key] != resolved[key]:
                     raise _own_error(f"seats.{name}.learner.{key} = {own[key]!r} is not allowed: the seats share "

@@ -90,10 +90,18 @@ def test_each_group_learns_from_its_own_columns_only():
         if name == "agent_1":  # MADDPG's own gamma (0.95) in place of the replay's (0.99), 1-step returns
             sub["discounts"] = (0.95 * (batch["discounts"][:, cols[name]] > 0)).astype(np.float32)
         lr.update(sub)
-        mine = dict(team.learners[name].agent_policy(0).net.state_dict())
-        theirs = dict(lr.agent_policy(0).net.state_dict())
-        for k in mine:
-            torch.testing.assert_close(mine[k], theirs[k], rtol=1e-5, atol=1e-6)
+        # every network of the learner: both members' Q-nets (and targets) of the idqn group; the MADDPG
+        # group's actor, critic and their targets
+        networks = ("q", "target") if name == "learner" else ("actors", "critic", "target_actors", "target_critic")
+        mine, theirs = team.learners[name].state_dict(), lr.state_dict()
+        for net in networks:
+            assert mine[net].keys() == theirs[net].keys() and mine[net]
+            for k in mine[net]:
+                torch.testing.assert_close(mine[net][k], theirs[net][k], rtol=1e-5, atol=1e-6, msg=f"{name} {net} {k}")
+        for i in range(len(cols[name])):  # and each member's saved policy
+            a, b = team.learners[name].agent_policy(i).net.state_dict(), lr.agent_policy(i).net.state_dict()
+            for k in a:
+                torch.testing.assert_close(a[k], b[k], rtol=1e-5, atol=1e-6)
     # and an update that saw the other seats' columns would differ: the test can fail
     wrong = build_learner(TeamSpec(("agent_1",), env.spec.obs_space, env.spec.num_actions), team.groups[0].learner, 3)
     sub = {k: (v[:, [0]] if k in ("obs", "next_obs", "actions", "returns", "discounts") else v)
@@ -184,6 +192,11 @@ def test_bad_seats_are_one_line_before_any_file(seats, message, tmp_path):
      r"a seat takes exactly one of learner, policy or member; got policy, member"),
     ({"agent_0": {"learner": {"kind": "maddpg", "batch_size": 256}}},
      r"^seats\.agent_0\.learner\.batch_size = 256 is not allowed: the seats share one replay"),
+    ({"agent_0": {"learner": {"kind": "idqn", "n_step": 3}}},
+     r"^seats\.agent_0\.learner\.n_step = 3 is not allowed: the seats share one replay of 1-step transitions"),
+    ({"agent_0": {"learner": {"kind": "idqn", "prioritized": True}}},
+     r"^seats\.agent_0\.learner\.prioritized = True is not allowed: the seats share one replay of 1-step "
+     r"transitions drawn uniformly"),
 ])
 def test_bad_seat_sections_are_config_errors(seats, message):
     with pytest.raises(ConfigError, match=message) as info:
