@@ -497,6 +497,29 @@ def _over_training(arms: list[str], done: dict[str, list[dict]], measures: list[
     return out
 
 
+def _metric_range(m: str, runs: list[dict]) -> tuple[float, float]:
+    """The range a metric cannot leave (envs/metrics.py): equality at most 1 (tag costs can take it below
+    0), peace in [0, N], sustainability in [1, episode length]; (-inf, inf) where none is known."""
+    config = next((r["config"] for r in runs if isinstance(r.get("config"), dict)), None)
+    if m == "equality":
+        return (-math.inf, 1.0)
+    params = _dig(config, "env.params") if config is not None else _MISSING
+    params = params if isinstance(params, dict) else {}
+    if m == "peace" and isinstance(params.get("num_agents"), int):
+        return (0.0, float(params["num_agents"]))
+    if m == "sustainability" and isinstance(params.get("max_cycles"), int):
+        return (1.0, float(params["max_cycles"]))
+    return (-math.inf, math.inf)
+
+
+def _clip(ci: Any, bounds: tuple[float, float]) -> tuple[tuple[float, float], bool]:
+    """An interval clipped to ``bounds``, and whether it crossed them."""
+    low, high = (float(v) for v in ci)
+    cut = (math.isfinite(low) and low < bounds[0]) or (math.isfinite(high) and high > bounds[1])
+    return (min(max(low, bounds[0]), bounds[1]) if math.isfinite(low) else low,
+            max(min(high, bounds[1]), bounds[0]) if math.isfinite(high) else high), cut
+
+
 def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                holm_family: str) -> dict[str, Any]:
     runs = data["runs"]
@@ -527,12 +550,18 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
         for m in measures:
             x = np.array([r.get(m, math.nan) for r in done[a]], dtype=float)
             s = stats.summarize(x, reps=reps, seed=seed, confidence=CONFIDENCE)
+            bounds = _metric_range(m, done[a])
+            clipped = False
+            for key in ("mean_ci", "iqm_ci"):
+                s[key], cut = _clip(s[key], bounds)
+                clipped = clipped or cut
             team_means = {t: _finite_mean([r["baselines"].get(t, {}).get(m, math.nan) for r in done[a]])
                           for t in teams}
             team_means = {t: v for t, v in team_means.items() if math.isfinite(v)}
             best = (max(team_means, key=team_means.__getitem__) if team_means and m in HIGHER_IS_BETTER
                     else None)  # a behaviour measure has no better direction: no strongest team
-            entry = {**s, "nan_dropped": int(np.isnan(x).sum()),
+            entry = {**s, "nan_dropped": int(np.isnan(x).sum()), "range": bounds, "clipped": clipped,
+                     "values": x.tolist(), "seeds": [r["seed"] for r in done[a]],
                      "random_mean": _finite_mean([r["random"].get(m, math.nan) for r in done[a]]),
                      "teams": team_means, "best_team": best,
                      "best_team_mean": team_means[best] if best is not None else math.nan,
@@ -581,6 +610,8 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                 continue
             values = np.array([[_float(r["curve"][s].get(m)) for s in steps] for r in with_curve])
             mean, low, high = stats.mean_band(values, CONFIDENCE)  # Student t at each step; NaN below 2 seeds
+            lo_b, hi_b = _metric_range(m, with_curve)
+            low, high = np.clip(low, lo_b, hi_b), np.clip(high, lo_b, hi_b)  # NaN stays NaN
             curves[a][m] = {"mean": mean.tolist(), "ci_low": low.tolist(), "ci_high": high.tolist(),
                             "per_seed": values.tolist(), "seeds": [r["seed"] for r in with_curve]}
 
@@ -1050,6 +1081,7 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
               f"one family of every arm × metric comparison ({n_others} × {len(METRICS)} = "
               f"{n_others * len(METRICS)})" + (", and one of every arm × behaviour measure comparison"
                                                if len(summary["measures"]) > len(METRICS) else ""))
+    clipped = {f"`{_md(a)}` {m}" for a in arms for m, e in info[a]["metrics"].items() if e.get("clipped")}
     L: list[str] = []
     add = L.append
     add("# Sweep report\n")
@@ -1084,7 +1116,9 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         "McLaughlin (the IQM's 25% cut at each end, Yuen's winsorised standard error, h − 1 degrees of "
         "freedom for the h seeds kept); the difference of two arms' means has the Welch t interval "
         "(Welch–Satterthwaite degrees of freedom); a learning-curve band is the Student t interval of the "
-        "mean at each step. An interval needs 2 seeds (n/a with one).")
+        "mean at each step. An interval needs 2 seeds (n/a with one). Intervals of a metric with a known "
+        "range (equality at most 1, peace in [0, N], sustainability in [1, episode length]) are clipped to "
+        "it" + (f"; clipped here: {', '.join(sorted(clipped))}" if clipped else "") + ".")
     add(f"- **Measured coverage** of these {pct} intervals, i.e. how often they contain the true value, "
         "by simulation on normal data:\n")
     L.extend(_coverage_lines(summary["coverage"], summary["interval_methods"]))
@@ -1290,17 +1324,35 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
     iqm = np.array([v["iqm"] for v in s], dtype=float)
     low = np.array([v["iqm_ci"][0] for v in s], dtype=float)
     high = np.array([v["iqm_ci"][1] for v in s], dtype=float)
-    height = np.nan_to_num(iqm)
+    points = [np.array(v.get("values", []), dtype=float) for v in s]
+    # the bars rise from the axis's natural base: 0 when every value shown is >= 0, else just below the
+    # lowest value shown (a negative score does not hang down from 0)
+    shown = np.concatenate([iqm, low, high, *points, [v["random_mean"] for v in s]])
+    shown = shown[np.isfinite(shown)]
+    lowest = float(shown.min()) if shown.size else 0.0
+    span = float(shown.max() - lowest) if shown.size else 1.0
+    bottom = 0.0 if lowest >= 0 else lowest - 0.08 * (span or abs(lowest) or 1.0)
+    height = np.where(np.isfinite(iqm), iqm - bottom, 0.0)
     yerr = np.nan_to_num(np.vstack([iqm - low, high - iqm])).clip(min=0.0)
-    bars = ax.bar(x, height, color=[colours[a] for a in arms], alpha=0.85, edgecolor="0.2", lw=0.8)
-    ax.errorbar(x, height, yerr=yerr, fmt="none", ecolor="black", capsize=4, lw=1.2)
+    bars = ax.bar(x, height, bottom=bottom, color=[colours[a] for a in arms], alpha=0.85, edgecolor="0.2",
+                  lw=0.8)
+    ax.errorbar(x, np.where(np.isfinite(iqm), iqm, bottom), yerr=yerr, fmt="none", ecolor="black", capsize=4,
+                lw=1.2)
+    for i, vals in enumerate(points):  # every seed, as a point over its arm's bar
+        vals = vals[np.isfinite(vals)]
+        if vals.size:
+            jitter = np.linspace(-0.18, 0.18, vals.size) if vals.size > 1 else np.zeros(1)
+            ax.scatter(x[i] + jitter, vals, s=14, color="white", edgecolors="black", linewidths=0.8, zorder=3)
+    if bottom != 0.0:
+        top = float(shown.max()) if shown.size else bottom + 1.0
+        ax.set_ylim(bottom, top + 0.08 * max(top - bottom, 1e-9))
     for i, a in enumerate(arms):
         if a == base:
             bars[i].set_hatch("//")
             bars[i].set_edgecolor("black")
             bars[i].set_linewidth(2.0)
         if math.isnan(iqm[i]):
-            ax.annotate("n/a", (x[i], 0.0), ha="center", va="bottom", fontsize=8)
+            ax.annotate("n/a", (x[i], bottom), ha="center", va="bottom", fontsize=8)
         r = s[i]["random_mean"]
         if math.isfinite(r):
             ax.hlines(r, x[i] - 0.4, x[i] + 0.4, colors="0.2", linestyles="dashed", lw=1.2)
@@ -1316,7 +1368,9 @@ def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
     handles = [Patch(facecolor="white", edgecolor="black", hatch="//", lw=2.0, label=f"baseline ({base})"),
                Line2D([], [], color="black", marker="_", ls="none", markersize=10,
                       label=f"{summary['confidence']:.0%} CI (trimmed-mean t)"),
-               Line2D([], [], color="0.2", ls="--", label="random team (mean)")]
+               Line2D([], [], color="0.2", ls="--", label="random team (mean)"),
+               Line2D([], [], color="white", marker="o", markeredgecolor="black", ls="none", markersize=4,
+                      label="each seed")]
     _legend(ax, handles=handles)
     _save(fig, path)
     return True

@@ -623,3 +623,21 @@ def test_findings_over_training_apply_the_dip_and_recovery_test_to_each_seed(tmp
     assert s["over_training"]["base"]["peace"]["verdict"] == "no dip claimed"  # a flat curve
     text = (write_report(root, reps=REPS) / "report.md").read_text()
     assert "## Findings over training" in text and "| `base` | efficiency | 3 of 3 |" in text
+
+
+def test_intervals_are_clipped_to_the_metrics_range_and_bars_show_each_seed(tmp_path):
+    root = _sweep_from_spec(tmp_path / "clip", {"base": "harvest_idqn.yaml", "seeds": [0, 1, 2],
+                                                "set": {"train.total_steps": 500}})
+    for run, peace in zip(sorted((root / "runs").iterdir()), (2.9, 3.0, 3.0)):  # invented (demo only)
+        data = json.loads((run / "summary.json").read_text())
+        data["peace"] = peace  # at most N = 3 agents not tagged out per step (envs/metrics.py)
+        data["return_mean"] = -5.0 - peace  # negative returns
+        (run / "summary.json").write_text(json.dumps(data))
+    s = report_summary(root, reps=REPS)
+    peace = s["arms"]["base"]["metrics"]["peace"]
+    unclipped = stats.t_interval([2.9, 3.0, 3.0])
+    assert unclipped[1] > 3.0  # the t interval crosses the maximum ...
+    assert peace["mean_ci"] == (pytest.approx(unclipped[0]), 3.0) and peace["clipped"]  # ... and is clipped
+    assert peace["range"] == (0.0, 3.0) and sorted(peace["values"]) == [2.9, 3.0, 3.0]
+    text = (write_report(root, reps=REPS) / "report.md").read_text()
+    assert "clipped here: `base` peace" in text
