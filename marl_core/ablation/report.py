@@ -28,7 +28,10 @@ by default (no normality assumption; ``test="welch"`` for Welch's t-test), Holm'
 probability of improvement; learning curves with the Student t interval of the mean at each step. The
 coverage of every interval, measured by simulation at 3, 5 and 10 seeds (``stats.MEASURED_COVERAGE``), is
 printed in the notes on method. No interval resamples, so ``reps`` and ``seed`` change nothing (they are kept
-for callers). The Holm family is, by default, one metric's comparisons of every arm with the baseline
+for callers). Findings use one Holm family rule: within each measure, the tests the Findings section
+makes on it (every arm against the baseline; one test along an axis or against a team, so no correction
+there). In Table 2 the Holm family is, by default, the same: one metric's comparisons of every arm with the
+baseline
 (``holm_family="metric"``); ``"all"`` corrects over every arm × metric comparison at once. NaN values
 (sustainability when no agent scores, equality when returns sum to <= 0) are dropped and counted.
 
@@ -738,24 +741,38 @@ def _verdict_clause(expected: str | None, verdict: str | None) -> str:
     return f" Expected: {expected.replace('_', ' ')}; the data {_VERDICT_TEXT[verdict]}{extra}."
 
 
+def _rule_clause(ci: Any, p_holm: float, observed: str | None, test_name: str) -> str:
+    """Where the interval and the test point different ways, say which one decided (the decision rule:
+    the Holm-corrected p below ``stats.ALPHA`` and the interval on one side of 0)."""
+    low, high = (float(v) for v in ci)
+    if observed != "no_change" or not (math.isfinite(low) and math.isfinite(high)):
+        return ""
+    if low > 0 or high < 0:
+        return (f" The interval excludes 0, but the decision rule also needs the {test_name} test's "
+                f"Holm-corrected p below {stats.ALPHA}, and it is not: no clear change is claimed.")
+    if p_holm < stats.ALPHA:
+        return (f" The {test_name} test's corrected p is below {stats.ALPHA}, but the interval includes 0: "
+                "no clear change is claimed.")
+    return ""
+
+
 def _axis_findings(key: str, axis: dict[str, Any], measures: list[str], arms: list[str],
                    done: dict[str, list[dict]], arm_info: dict[str, Any], expect: dict[str, str],
                    test: str, reps: int, seed: int | None) -> list[dict[str, Any]]:
     """One finding per measure along the numeric axis ``key``: Spearman's trend over every done run
-    (Holm-corrected over the measures) and the difference between the arms at the axis's two ends."""
+    (one test per measure: no correction, see the findings' family rule) and the difference between the
+    arms at the axis's two ends."""
     members = axis["groups"]["all arms"]
     lo_arm, hi_arm = members[0], members[-1]
     xs = [float(axis["values"][a]) for a in members for _ in done[a]]
     trends = {m: stats.trend(xs, [r.get(m, math.nan) for a in members for r in done[a]]) for m in measures}
-    tested = [m for m in measures if math.isfinite(trends[m]["p_value"])]
-    adjusted = dict(zip(tested, stats.holm([trends[m]["p_value"] for m in tested]))) if tested else {}
     out = []
     for m in measures:
         t = trends[m]
         hi = np.array([r.get(m, math.nan) for r in done[hi_arm]], dtype=float)
         lo = np.array([r.get(m, math.nan) for r in done[lo_arm]], dtype=float)
         c = stats.compare(hi, lo, test, reps=reps, confidence=CONFIDENCE, seed=seed)
-        p_holm = float(adjusted.get(m, math.nan))
+        p_holm = float(t["p_value"])  # one test per measure: its own family, nothing to correct
         rho = t["rho"]
         observed = None if not math.isfinite(p_holm) else (
             "no_change" if p_holm >= stats.ALPHA else "increases" if rho > 0 else "decreases")
@@ -766,7 +783,7 @@ def _axis_findings(key: str, axis: dict[str, Any], measures: list[str], arms: li
         sentence = (f"{m} {says} as {key} rises: {mean[lo_arm]} at {key} = {_short(axis['values'][lo_arm])} "
                     f"and {mean[hi_arm]} at {_short(axis['values'][hi_arm])} (difference "
                     f"{_with_ci(c['difference'], c['difference_ci'])}, {CONFIDENCE:.0%} Welch t); Spearman "
-                    f"rho = {_num(rho, 2)} over {t['n']} runs, p (Holm over {len(tested)} measures) "
+                    f"rho = {_num(rho, 2)} over {t['n']} runs, p (one test for this measure) "
                     f"{_p_is(p_holm)}.{_verdict_clause(expected, verdict)}")
         out.append({"measure": m, "along": key, "arm": hi_arm, "against": lo_arm, "rho": rho, "n": t["n"],
                     "p_value": t["p_value"], "p_holm": p_holm, "difference": c["difference"],
@@ -778,15 +795,14 @@ def _axis_findings(key: str, axis: dict[str, Any], measures: list[str], arms: li
 def _team_findings(measures: list[str], arm: str, team: str, done: list[dict], arm_info: dict[str, Any],
                    expect: dict[str, str]) -> list[dict[str, Any]]:
     """One finding per measure: the arm against the non-learning team ``team``, paired within each run
-    (the same evaluation episodes), Holm-corrected over the measures."""
+    (the same evaluation episodes), one test per measure."""
     pairs = {m: stats.paired([r.get(m, math.nan) for r in done],
                              [r["baselines"].get(team, {}).get(m, math.nan) for r in done], CONFIDENCE)
              for m in measures}
-    tested = [m for m in measures if math.isfinite(pairs[m]["p_value"])]
-    adjusted = dict(zip(tested, stats.holm([pairs[m]["p_value"] for m in tested]))) if tested else {}
     out = []
     for m in measures:
-        c, p_holm = pairs[m], float(adjusted.get(m, math.nan))
+        c = pairs[m]
+        p_holm = float(c["p_value"])  # one test per measure: its own family
         if not any(m in r["baselines"].get(team, {}) and math.isfinite(r["baselines"][team][m]) for r in done):
             continue  # the team does not record this measure (e.g. waste removed by a harvest team)
         observed = _observed(*c["difference_ci"], p_holm)
@@ -798,7 +814,8 @@ def _team_findings(measures: list[str], arm: str, team: str, done: list[dict], a
                     f"{_num(arm_info['metrics'][m]['mean'])} "
                     f"against {_num(arm_info['metrics'][m]['teams'].get(team, math.nan))}, paired difference "
                     f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} t over {c['n']} runs), "
-                    f"p (paired t, Holm over {len(tested)} measures) {_p_is(p_holm)}."
+                    f"p (paired t, one test for this measure) {_p_is(p_holm)}."
+                    f"{_rule_clause(c['difference_ci'], p_holm, observed, 'paired t')}"
                     f"{_verdict_clause(expected, verdict)}")
         out.append({"measure": m, "along": None, "arm": arm, "against": team, "p_holm": p_holm,
                     "difference": c["difference"], "difference_ci": c["difference_ci"], "observed": observed,
@@ -808,20 +825,31 @@ def _team_findings(measures: list[str], arm: str, team: str, done: list[dict], a
 
 def _baseline_findings(measures: list[str], baseline: str, comparisons: dict[str, dict[str, Any]],
                        expect: dict[str, str], test: str) -> list[dict[str, Any]]:
-    """One finding per arm and measure against the baseline, from Table 2's numbers."""
+    """One finding per arm and measure against the baseline, from Table 2's tests, Holm-corrected within
+    each measure over the arms (the findings' one family rule, whatever Table 2's ``holm_family``)."""
+    adjusted: dict[tuple[str, str], float] = {}
+    size: dict[str, int] = {}
+    for m in measures:
+        tested = [a for a in comparisons if math.isfinite(comparisons[a][m]["p_value"])]
+        size[m] = len(tested)
+        if tested:
+            adjusted.update(zip(((a, m) for a in tested),
+                                stats.holm([comparisons[a][m]["p_value"] for a in tested])))
     out = []
     for m in measures:
         for a, per in comparisons.items():
             c = per[m]
-            observed = _observed(*c["difference_ci"], c.get("p_holm", math.nan))
+            p_holm = float(adjusted.get((a, m), math.nan))
+            observed = _observed(*c["difference_ci"], p_holm)
             expected = expect.get(m)
             verdict = _verdict(expected, observed)
             says = "cannot be tested (too few runs)" if observed is None else _SAYS[observed]
             sentence = (f"{m} {says} in `{a}` against the baseline `{baseline}`: difference "
                         f"{_with_ci(c['difference'], c['difference_ci'])} ({CONFIDENCE:.0%} Welch t), "
-                        f"p ({_TEST_NAMES[test]}, Holm) {_p_is(c.get('p_holm', math.nan))}."
+                        f"p ({_TEST_NAMES[test]}, Holm over {size[m]} arm(s)) {_p_is(p_holm)}."
+                        f"{_rule_clause(c['difference_ci'], p_holm, observed, _TEST_NAMES[test])}"
                         f"{_verdict_clause(expected, verdict)}")
-            out.append({"measure": m, "along": None, "arm": a, "against": baseline, "p_holm": c.get("p_holm"),
+            out.append({"measure": m, "along": None, "arm": a, "against": baseline, "p_holm": p_holm,
                         "difference": c["difference"], "difference_ci": c["difference_ci"],
                         "observed": observed, "expected": expected, "verdict": verdict, "sentence": sentence})
     return out
@@ -984,11 +1012,10 @@ def _findings_lines(summary: dict[str, Any]) -> list[str]:
     along = summary["findings_along"]
     against = found[0]["against"]
     if along:
-        head = (f"Along `{along}`: each measure's trend over every done run (Spearman's rank correlation, "
-                "Holm-corrected over the measures), with the difference between the arms at the two ends of "
-                "the axis.")
+        head = (f"Along `{along}`: each measure's trend over every done run (Spearman's rank correlation), "
+                "with the difference between the arms at the two ends of the axis.")
     elif against == summary["baseline"]:
-        head = f"Each arm against the baseline `{against}` (Table 2's numbers)."
+        head = f"Each arm against the baseline `{against}` (Table 2's tests)."
     else:
         head = (f"The arm against the non-learning `{against}` team, paired within each run (both play the "
                 "same evaluation episodes).")
@@ -996,6 +1023,11 @@ def _findings_lines(summary: dict[str, Any]) -> list[str]:
         head += (" The spec states an expected direction for " + ", ".join(f"{m} ({d.replace('_', ' ')})"
                                                                      for m, d in summary["expect"].items())
                  + f"; a direction counts as shown when its corrected p is below {stats.ALPHA}.")
+    head += (f" One decision rule for every finding: a measure rises (falls) when its Holm-corrected p is "
+             f"below {stats.ALPHA} and its interval lies above (below) 0; anything else is no clear change. "
+             "Holm's correction runs within each measure, over the tests this section makes on it (the arms "
+             "against the baseline; one test along an axis or against a team, so none there); measures are "
+             "different questions and are not corrected against each other.")
     lines = [head, ""]
     ordered = [f for f in found if f["expected"]] + [f for f in found if not f["expected"]]
     lines.extend(f"- {f['sentence']}" for f in ordered)

@@ -212,3 +212,17 @@ def test_against_needs_one_arm_and_a_measured_team():
         parse_spec({"base": BASE, "seeds": [0], "against": "nobody"})
     sweep = parse_spec({"base": BASE, "seeds": [0], "against": "restrained", "expect": {"peace": "no_change"}})
     assert sweep.against == "restrained" and sweep.expect == {"peace": "no_change"}
+
+
+def test_a_finding_names_its_decision_rule_where_interval_and_test_disagree():
+    from marl_core.ablation.report import _rule_clause
+
+    # the Welch interval excludes 0, the Mann–Whitney p (Holm) is 0.14: no clear change, and the sentence says
+    # why (the rule needs both); the issue that asked for this quoted exactly such a case
+    said = _rule_clause((0.1, 0.9), 0.14, "no_change", "Mann–Whitney U")
+    assert "The interval excludes 0, but the decision rule also needs the Mann–Whitney U test's" in said
+    assert "p below 0.05" in said
+    said = _rule_clause((-0.1, 0.9), 0.01, "no_change", "paired t")
+    assert "corrected p is below 0.05, but the interval includes 0" in said
+    assert _rule_clause((0.1, 0.9), 0.01, "increases", "paired t") == ""  # both agree: nothing to add
+    assert _rule_clause((-0.1, 0.9), 0.3, "no_change", "paired t") == ""

@@ -602,3 +602,12 @@ def test_dip_and_recovery_is_rare_on_noise_and_absent_on_trends():
     assert rising["shows"] == 0.0 and rising["d1"] < 0
     assert falling["shows"] == 0.0 and falling["d2"] < 0
     assert stats.dip_and_recovery(steps[:9], np.zeros(9)) is None  # fewer than 10 evaluations
+
+
+def test_the_docstrings_quote_the_measured_bootstrap_coverage():
+    # the module docstring and stratified_bootstrap_ci's quote MEASURED_COVERAGE; keep them in step
+    boot = stats.MEASURED_COVERAGE["iqm_percentile_bootstrap"]
+    quoted = f"{boot[3]:.1%} of the time at 3 seeds, {boot[5]:.1%} at 5 and {boot[10]:.1%} at 10"
+    assert quoted in " ".join(stats.__doc__.split())
+    assert f"covers {boot[3]:.1%} at 3 seeds, {boot[5]:.1%} at 5 and {boot[10]:.1%} at 10" in " ".join(
+        stats.stratified_bootstrap_ci.__doc__.split())
