@@ -74,7 +74,15 @@ def _parser() -> argparse.ArgumentParser:
     v.add_argument("--gif", metavar="PATH", help="write a GIF of the first episode")
     a = sub.add_parser("ablate", help="run a sweep (a grid of runs over seeds) into a sweep directory")
     a.add_argument("spec", help="sweep spec YAML (see configs/ablations/)")
-    a.add_argument("--out", required=True, help="sweep directory (rerun the same command to continue)")
+    a.add_argument("--out", metavar="SWEEP_DIR",
+                   help="sweep directory (rerun the same command to continue); required unless --estimate")
+    a.add_argument("--size", choices=("quick", "full", "published"),
+                   help="for a spec with sizes: quick (a first look), full (default) or published (the papers' "
+                   "scale); each size is its own sweep, so give each its own --out")
+    a.add_argument("--estimate", action="store_true",
+                   help="run nothing into SWEEP_DIR: measure this machine's speed on each arm (three short runs "
+                   "each) and print what the sweep at --size would cost")
+    a.add_argument("--json", action="store_true", help="with --estimate: print JSON")
     a.add_argument("--workers", type=int, help="runs at once (default: the number of CPUs)")
     a.add_argument("--backend", default="local", help="local (process pool, default) or ray")
     a.add_argument("--address", help="ray: address of an existing cluster (default: start a local one)")
@@ -382,8 +390,31 @@ def _evaluate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _estimate(args: argparse.Namespace) -> int:
+    from marl_core.ablation.runner import estimate
+
+    say = None if args.quiet or args.json else (lambda line: print(line, flush=True))
+    est = estimate(args.spec, size=args.size, workers=args.workers, progress=say)
+    if args.json:
+        print(json.dumps(est, indent=2))
+        return 0
+    print(f"{'arm':<24} {'runs':>4} {'env steps/run':>14} {'steps/s':>8} {'eval s':>7} {'h/run':>7}")
+    for a in est["arms"]:
+        print(f"{a['arm'][:24]:<24} {a['runs']:>4} {a['env_steps_per_run']:>14,} {a['env_steps_per_s']:>8.0f} "
+              f"{a['eval_s']:>7.1f} {a['run_s'] / 3600:>7.2f}")
+    size = f" at size {est['size']}" if est["size"] else ""
+    print(f"total{size}: {est['cpu_hours']:.1f} CPU-hours; about {est['wall_hours']:.1f} h with --workers "
+          f"{est['workers']} (one run per core; measured in {est['probe_s']:.0f} s on this machine)")
+    return 0
+
+
 def _ablate(args: argparse.Namespace) -> int:
     from marl_core.ablation.runner import ablate
+
+    if args.estimate:
+        return _estimate(args)
+    if not args.out:
+        raise UsageError("ablate needs --out SWEEP_DIR (the sweep directory), or --estimate")
 
     shown = {"t": 0.0}
 
@@ -401,7 +432,7 @@ def _ablate(args: argparse.Namespace) -> int:
 
     counts = ablate(args.spec, args.out, workers=args.workers, backend=args.backend, address=args.address,
                     retry_failed=args.retry_failed, progress=progress,
-                    notify=lambda line: print(f"note: {line}", flush=True))
+                    notify=lambda line: print(f"note: {line}", flush=True), size=args.size)
     print(f"sweep: {args.out}  done {counts.get('done', 0)}, failed {counts.get('failed', 0)}")
     if counts.get("failed"):
         print(f"failed runs: {command()} status {args.out}; rerun them with --retry-failed")

@@ -44,7 +44,7 @@ from marl_core.ablation.spec import Sweep, load_spec
 from marl_core.errors import MissingExtraError, RunDirError
 from marl_core.hints import command
 
-__all__ = ["ablate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE", "LOCK_NAME"]
+__all__ = ["ablate", "estimate", "repeat", "run_one", "sweep_status", "BACKENDS", "HEADLINE", "LOCK_NAME"]
 
 BACKENDS = ("local", "ray")
 #: the lock file of a sweep directory, held by the ``ablate`` process that runs it
@@ -135,8 +135,9 @@ def _unlock(handle: Any) -> None:
         handle.close()  # closing the file releases the flock; the file stays for the next holder
 
 
-def _prepare(spec: str | Path, out: Path, retry_failed: bool) -> tuple[Sweep, Ledger, Any]:
-    sweep = load_spec(spec)
+def _prepare(spec: str | Path, out: Path, retry_failed: bool, size: str | None = None
+             ) -> tuple[Sweep, Ledger, Any]:
+    sweep = load_spec(spec, size)
     ledger_path = out / "ledger.sqlite"
     if out.exists() and not out.is_dir():
         raise RunDirError(f"sweep directory '{out}' is a file")
@@ -195,11 +196,13 @@ def _reconcile(ledger: Ledger, out: Path) -> None:
 
 def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backend: str = "local",
            address: str | None = None, retry_failed: bool = False,
-           progress: Progress | None = None, notify: Callable[[str], None] | None = None) -> dict[str, int]:
+           progress: Progress | None = None, notify: Callable[[str], None] | None = None,
+           size: str | None = None) -> dict[str, int]:
     """Run every unfinished run of ``spec`` into the sweep directory ``out``; return the final counts.
 
     ``notify`` receives the spec's one-line notices (:attr:`~marl_core.ablation.spec.Sweep.notices`, e.g.
-    a base learner key kept across a switch of ``learner.kind``) before anything runs."""
+    a base learner key kept across a switch of ``learner.kind``) before anything runs. ``size``: the spec's
+    size to run (``quick`` / ``full`` / ``published``; default ``full``) when it defines ``sizes``."""
     if backend not in BACKENDS:
         raise RunDirError(f"--backend = {backend!r} is not allowed; expected one of {', '.join(BACKENDS)}")
     if workers is not None and workers < 1:
@@ -207,7 +210,7 @@ def ablate(spec: str | Path, out: str | Path, workers: int | None = None, backen
     if address is not None and backend != "ray":
         raise RunDirError("--address is only used with --backend ray")
     out = Path(out)
-    sweep, ledger, lock = _prepare(spec, out, retry_failed)
+    sweep, ledger, lock = _prepare(spec, out, retry_failed, size)
     for line in sweep.notices if notify is not None else ():
         notify(line)
     try:
@@ -377,3 +380,90 @@ def sweep_status(out: str | Path) -> list[dict[str, Any]]:
         return rows
     finally:
         ledger.close()
+
+
+# ---------------------------------------------------------------------- the cost of a sweep
+def _probe(config: dict[str, Any], steps: int, eval_every: int, root: Path) -> float:
+    """Seconds to train ``config`` for ``steps`` env steps evaluating every ``eval_every`` (one thread, no
+    TensorBoard, GIF or checkpoint in the way), in a fresh directory under ``root``."""
+    import copy as _copy
+
+    from marl_core.config import parse_config
+    from marl_core.train import run
+
+    cfg = _copy.deepcopy(config)
+    cfg["train"].update(total_steps=steps, eval_every=eval_every, checkpoint_every=10 * steps)
+    cfg["log"].update(tensorboard=False, gif_every=0, progress=False)
+    out = root / f"probe_{len(list(root.iterdir()))}"
+    start = time.perf_counter()
+    run(parse_config(cfg), out)
+    return time.perf_counter() - start
+
+
+def _chunk(config: dict[str, Any]) -> int:
+    """Env steps between two updates: a rollout for ppo, one vector step for the replay learners."""
+    n = int(config["env"].get("num_envs", 1))
+    learner = config["learner"]
+    return n * int(learner.get("rollout_steps", 1)) if learner.get("kind") == "ppo" else n
+
+
+def estimate(spec: str | Path, size: str | None = None, workers: int | None = None,
+             probe_steps: int | None = None, progress: Callable[[str], None] | None = None) -> dict[str, Any]:
+    """What running ``spec`` at ``size`` costs on this machine, from throughput measured now.
+
+    For each arm, three short runs of its first seed's config, one thread each, one after another (so the
+    figure is for one run per core with the others idle): ``P`` env steps with one evaluation, ``2P`` with one
+    evaluation, and ``P`` with two. Their differences give the training speed (env steps/s), the cost of one
+    evaluation (the config's ``eval_episodes``) and the fixed cost (start-up and the non-learning teams).
+    A run is then fixed + total steps / speed + evaluations × one evaluation; checkpoints are not counted.
+    ``P`` is ``probe_steps`` or about 20,000 env steps (a quarter of a run when that is less), rounded up
+    to an even number of updates. ``lola`` counts updates,
+    not env steps, and is refused.
+
+    Returns ``{"size", "workers", "arms": [{"arm", "runs", "env_steps_per_run", "env_steps_per_s",
+    "eval_s", "fixed_s", "run_s"}], "cpu_hours", "wall_hours", "probe_s"}``."""
+    import tempfile
+
+    import torch
+
+    from marl_core.config import config_to_dict
+
+    sweep = load_spec(spec, size)
+    workers = workers or max(1, os.cpu_count() or 1)
+    if workers < 1:
+        raise RunDirError(f"--workers = {workers} is not allowed; expected an integer >= 1")
+    threads = torch.get_num_threads()
+    torch.set_num_threads(1)
+    arms: list[dict[str, Any]] = []
+    began = time.perf_counter()
+    try:
+        with tempfile.TemporaryDirectory(prefix="marl_estimate_") as tmp:
+            for arm in sweep.arms:
+                runs = sweep.runs_of(arm.name)
+                config = config_to_dict(runs[0].config)
+                if config["learner"]["kind"] == "lola":
+                    raise RunDirError(f"--estimate: arm {arm.name!r} runs lola, which counts updates, not env "
+                                      "steps; its runs take about a minute (see the study header)")
+                chunk = _chunk(config)
+                total = int(config["train"]["total_steps"])
+                want = probe_steps or min(20_000, total // 4)  # never probe much longer than a run
+                k = max(2, -(-want // chunk))
+                p = (k + k % 2) * chunk  # an even number of updates: the half-way evaluation falls on one
+                if progress is not None:
+                    progress(f"measuring arm {arm.name}: 3 short runs of {p:,}-{2 * p:,} env steps")
+                t1 = _probe(config, p, p, Path(tmp))
+                t2 = _probe(config, 2 * p, 2 * p, Path(tmp))
+                t3 = _probe(config, p, p // 2, Path(tmp))
+                speed = p / (t2 - t1) if t2 > t1 else 2 * p / t2
+                one_eval = max(t3 - t1, 0.0)
+                fixed = max(t1 - p / speed - one_eval, 0.0)
+                evals = -(-total // int(config["train"]["eval_every"]))
+                run_s = fixed + total / speed + evals * one_eval
+                arms.append({"arm": arm.name, "runs": len(runs), "env_steps_per_run": total,
+                             "env_steps_per_s": speed, "eval_s": one_eval, "fixed_s": fixed, "run_s": run_s})
+    finally:
+        torch.set_num_threads(threads)
+    cpu = sum(a["runs"] * a["run_s"] for a in arms)
+    longest = max((a["run_s"] for a in arms), default=0.0)
+    return {"spec": str(spec), "size": sweep.size, "workers": workers, "arms": arms, "cpu_hours": cpu / 3600,
+            "wall_hours": max(cpu / workers, longest) / 3600, "probe_s": time.perf_counter() - began}

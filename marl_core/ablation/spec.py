@@ -24,6 +24,10 @@ A spec (every key but ``base`` and ``seeds`` may be left out)::
                                       # paired within each run (default: no such comparison)
     over_training: true               # the report adds findings over training: per-seed curves and the
                                       # dip-and-recovery test of docs/studies.md (default false)
+    sizes:                            # optional: the study at three sizes (ablate --size, default full);
+      quick: {seeds: [0, 1, 2], set: {train.total_steps: 20000}}     # each may replace the seeds and add
+      full: {}                                                        # to 'set' (its keys win)
+      published: {set: {train.total_steps: 10000000}}
 
 Arms and their names, in the order written:
 
@@ -97,12 +101,16 @@ from marl_core.config import (
 )
 from marl_core.errors import ConfigError
 
-__all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "KEPT_ACROSS_KINDS", "load_spec", "parse_spec",
+__all__ = ["Arm", "RunSpec", "Sweep", "SPEC_KEYS", "SIZES", "KEPT_ACROSS_KINDS", "load_spec", "parse_spec", "apply_size",
            "sweep_table", "flat_config"]
 
 #: The keys a spec may have.
 SPEC_KEYS: tuple[str, ...] = ("base", "seeds", "axes", "combine", "arms", "set", "baseline", "smoke_test",
-                              "expect", "against", "over_training")
+                              "expect", "against", "over_training", "sizes")
+#: the sizes a spec may define under ``sizes`` (``ablate --size``); ``full`` is the default
+SIZES: tuple[str, ...] = ("quick", "full", "published")
+DEFAULT_SIZE = "full"
+_SIZE_KEYS = ("seeds", "set")
 #: ``expect`` values: the direction a study expects a measure to move (marl_core.ablation.report findings)
 EXPECT_DIRECTIONS: tuple[str, ...] = ("increases", "decreases", "no_change")
 #: what ``expect`` may name: the report's metrics and behaviour measures
@@ -174,6 +182,7 @@ class Sweep:
             ``base``, or ``inherited``: a base learner key kept across a switch of ``learner.kind``), for
             every key the spec or the base wrote (``train.seed`` aside); a key that is absent took its
             default (a learner key: its kind's default).
+        size: the size expanded (``quick`` / ``full`` / ``published``), or None for a spec without sizes.
         over_training: the spec's ``over_training``: the report adds findings over training. Not part of
             ``spec_hash``.
         notices: one line per arm that keeps a base learner value across a kind switch (see the module
@@ -197,6 +206,7 @@ class Sweep:
     sources: dict[str, dict[str, str]] = field(default_factory=dict)
     notices: list[str] = field(default_factory=list)
     over_training: bool = False
+    size: str | None = None
 
     @property
     def arm_names(self) -> list[str]:
@@ -463,12 +473,55 @@ def _axes_arms(axes: dict[str, list[Any]], combine: str) -> list[tuple[str, dict
     return out
 
 
-def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
+def apply_size(data: Any, size: str | None) -> tuple[Any, str | None]:
+    """The spec at one of its sizes: ``sizes[size]``'s ``seeds`` replace the spec's and its ``set`` is
+    added to the spec's (its keys win); ``sizes`` itself is dropped. A spec without ``sizes`` is returned as
+    it is (size None), and then asking for a size is an error. ``size`` None means :data:`DEFAULT_SIZE`."""
+    if not isinstance(data, dict) or "sizes" not in data:
+        if size is not None:
+            raise ConfigError(f"--size {size}: this spec has no 'sizes' (it runs at one size); leave --size out")
+        return data, None
+    sizes = data["sizes"]
+    if not isinstance(sizes, dict) or not sizes:
+        raise ConfigError(f"sizes = {_show(sizes)} is not allowed: expected a mapping of {', '.join(SIZES)} to "
+                          "mappings with 'seeds' and/or 'set'")
+    for name, body in sizes.items():
+        if name not in SIZES:
+            raise ConfigError(f"sizes.{name} is not a size: expected {', '.join(SIZES)}")
+        if body is not None and not isinstance(body, dict):
+            raise ConfigError(f"sizes.{name} = {_show(body)} is not allowed: expected a mapping with 'seeds' "
+                              "and/or 'set'")
+        for key in body or {}:
+            if key not in _SIZE_KEYS:
+                raise ConfigError(f"sizes.{name}.{key} is not allowed: a size sets only {' and '.join(_SIZE_KEYS)}")
+    size = DEFAULT_SIZE if size is None else size
+    if size not in SIZES:
+        raise ConfigError(f"--size = {_show(size)} is not allowed: expected one of {', '.join(SIZES)}")
+    if size not in sizes:
+        raise ConfigError(f"--size {size}: this spec defines the sizes {', '.join(sizes)}")
+    body = sizes[size] or {}
+    out = {k: copy.deepcopy(v) for k, v in data.items() if k != "sizes"}
+    if "seeds" in body:
+        out["seeds"] = copy.deepcopy(body["seeds"])
+    if body.get("set") is not None:
+        if not isinstance(body["set"], dict):
+            raise ConfigError(f"sizes.{size}.set = {_show(body['set'])} is not allowed: expected a mapping of "
+                              "dotted config keys to values")
+        shared = out.get("set") or {}
+        if not isinstance(shared, dict):
+            raise ConfigError(f"set = {_show(shared)} is not allowed: expected a mapping of dotted config keys "
+                              "to values")
+        out["set"] = {**copy.deepcopy(shared), **copy.deepcopy(body["set"])}
+    return out, size
+
+
+def parse_spec(data: Any, base_dir: str | os.PathLike | None = None, size: str | None = None) -> Sweep:
     """Check a spec given as a mapping and expand it into arms and runs.
 
     Args:
         data: the spec (e.g. parsed YAML).
         base_dir: the directory a relative ``base`` path is read from (default: the working directory).
+        size: with a spec that has ``sizes``, the size to expand (default ``full``); see :func:`apply_size`.
 
     Raises:
         ConfigError: one line naming what is wrong (see the module docstring for every check).
@@ -482,7 +535,10 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
             hint = (f"; did you mean {_did_you_mean(close)}?" if close
                     else f" (valid keys: {', '.join(SPEC_KEYS)})")
             raise ConfigError(f"unknown spec key {_show(key)}{hint}")
+    data, size = apply_size(data, size)
     source = copy.deepcopy(data)
+    if size is not None:
+        source["size"] = size
     base_dir = Path(base_dir) if base_dir is not None else Path.cwd()
 
     if "base" not in data:
@@ -609,7 +665,7 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None) -> Sweep:
     return Sweep(arms=arms, runs=runs, baseline=baseline, seeds=seeds, axes=axes, spec_hash=spec_hash,
                  source=source, combine=combine, shared=shared, base=base, base_path=base_path,
                  smoke_test=smoke_test, expect=expect, against=against, sources=sources, notices=notices,
-                 over_training=over_training)
+                 over_training=over_training, size=size)
 
 
 def _read_expect(value: Any) -> dict[str, str]:
@@ -630,8 +686,9 @@ def _read_expect(value: Any) -> dict[str, str]:
     return dict(value)
 
 
-def load_spec(path: str | os.PathLike) -> Sweep:
-    """Read a YAML sweep spec and expand it (a relative ``base`` is read from the spec's directory).
+def load_spec(path: str | os.PathLike, size: str | None = None) -> Sweep:
+    """Read a YAML sweep spec and expand it (a relative ``base`` is read from the spec's directory) at
+    ``size`` (see :func:`apply_size`).
 
     Raises:
         ConfigError: a missing or unreadable file, invalid YAML, or any problem of :func:`parse_spec`
@@ -639,7 +696,7 @@ def load_spec(path: str | os.PathLike) -> Sweep:
     """
     data, path = read_yaml_mapping(path, "sweep spec", "a mapping of spec keys")
     try:
-        return parse_spec(data, path.parent)
+        return parse_spec(data, path.parent, size)
     except ConfigError as err:
         raise ConfigError(f"{path}: {err}") from None
 

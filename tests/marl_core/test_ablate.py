@@ -476,3 +476,29 @@ def test_sweep_dir_of_another_spec_is_refused(tmp_path, capsys):
     assert _rows(sweep) == rows  # ledger unchanged: no run of B registered
     assert _meta(sweep) == meta  # the spec hash is still A's
     assert _files(sweep / "runs") == files
+
+
+def test_estimate_measures_each_arm_and_adds_up_the_sweep(tmp_path, capsys):
+    from marl_core.ablation.runner import estimate
+
+    base = _tiny_base()
+    base["train"].update(total_steps=4000, eval_every=1000)
+    spec = _write_spec(tmp_path / "est.yaml", {
+        "base": base, "seeds": [0, 1, 2], "arms": {"a": {}, "b": {"env.params.view_radius": 4}}, "baseline": "a",
+        "sizes": {"quick": {"seeds": [0]}, "full": {}}})
+    est = estimate(spec, workers=2, probe_steps=100)
+    assert est["size"] == "full" and [a["arm"] for a in est["arms"]] == ["a", "b"]
+    for a in est["arms"]:
+        assert a["runs"] == 3 and a["env_steps_per_run"] == 4000 and a["env_steps_per_s"] > 0
+        # runner.py estimate: fixed + steps / speed + evaluations x one evaluation (4 evaluations here)
+        assert a["run_s"] == pytest.approx(a["fixed_s"] + 4000 / a["env_steps_per_s"] + 4 * a["eval_s"])
+    cpu = sum(3 * a["run_s"] for a in est["arms"])
+    assert est["cpu_hours"] == pytest.approx(cpu / 3600)
+    assert est["wall_hours"] == pytest.approx(max(cpu / 2, *(a["run_s"] for a in est["arms"])) / 3600)
+    assert not (tmp_path / "sweep").exists()  # nothing is written where a sweep would go
+    # the command: a table and the total, no SWEEP_DIR needed
+    assert main(["ablate", str(spec), "--size", "quick", "--estimate", "--workers", "1", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "total at size quick:" in out and "CPU-hours" in out and "with --workers 1" in out
+    assert main(["ablate", str(spec)]) == 2
+    assert "ablate needs --out SWEEP_DIR" in capsys.readouterr().err

@@ -407,3 +407,35 @@ def test_smoke_test_must_be_true_or_false():
 
 def test_quick_spec_is_a_smoke_test():
     assert load_spec(Path(__file__).resolve().parents[2] / "configs" / "ablations" / "quick.yaml").smoke_test
+
+
+# ---------------------------------------------------------------------------------- sizes
+SIZED = {"base": BASE, "seeds": [0, 1, 2, 3, 4], "set": {"train.total_steps": 1000, "train.eval_every": 500},
+         "sizes": {"quick": {"seeds": [0, 1], "set": {"train.total_steps": 200}}, "full": {},
+                   "published": {"set": {"train.total_steps": 10_000_000}}}}
+
+
+def test_a_spec_runs_at_each_of_its_sizes():
+    full = parse_spec(copy.deepcopy(SIZED))  # full is the default
+    quick = parse_spec(copy.deepcopy(SIZED), size="quick")
+    published = parse_spec(copy.deepcopy(SIZED), size="published")
+    assert (full.size, quick.size, published.size) == ("full", "quick", "published")
+    assert [r.seed for r in quick.runs] == [0, 1] and len(full.runs) == len(published.runs) == 5
+    steps = {s.size: s.runs[0].config.train.total_steps for s in (full, quick, published)}
+    assert steps == {"full": 1000, "quick": 200, "published": 10_000_000}
+    assert quick.runs[0].config.train.eval_every == 500  # the spec's set still applies; the size's keys win
+    assert len({full.spec_hash, quick.spec_hash, published.spec_hash}) == 3  # three sweeps
+    assert quick.source["size"] == "quick" and "sizes" not in quick.source
+
+
+@pytest.mark.parametrize("spec, size, message", [
+    ({"base": BASE, "seeds": [0]}, "quick", r"^--size quick: this spec has no 'sizes' \(it runs at one size\)"),
+    ({**SIZED, "sizes": {"tiny": {}}}, None, r"^sizes\.tiny is not a size: expected quick, full, published$"),
+    ({**SIZED, "sizes": {"quick": {"steps": 3}}}, "quick", r"^sizes\.quick\.steps is not allowed: a size sets only "
+                                                          r"seeds and set$"),
+    ({**SIZED, "sizes": {"quick": {}}}, None, r"^--size full: this spec defines the sizes quick$"),
+    (SIZED, "huge", r"^--size = 'huge' is not allowed: expected one of quick, full, published$"),
+])
+def test_bad_sizes_are_one_line(spec, size, message):
+    with pytest.raises(ConfigError, match=message):
+        parse_spec(copy.deepcopy(spec), size=size)
