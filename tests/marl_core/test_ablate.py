@@ -276,6 +276,79 @@ def test_a_sweep_on_a_local_ray_cluster_matches_the_local_backend(tmp_path, monk
         assert rows[rid]["metrics"] == local_rows[rid]["metrics"], rid
 
 
+def _free_port() -> int:
+    import socket
+
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return sock.getsockname()[1]
+
+
+NODES_ALIVE = """
+import sys, ray
+ray.init(address=sys.argv[1], log_to_driver=False, include_dashboard=False)
+print(sum(n["Alive"] for n in ray.nodes()))
+ray.shutdown()
+"""
+
+
+@pytest.mark.slow
+def test_a_sweep_on_a_two_node_ray_cluster_matches_the_local_backend(tmp_path, capsys):
+    # the path a user takes to a cluster (docs/studies.md, "On a Ray cluster"): a head started with
+    # `ray start --head`, a second node that joins it, and `ablate --backend ray --address`
+    pytest.importorskip("ray")
+    ray_cli = Path(sys.executable).parent / "ray"
+    env = {**os.environ, "RAY_USAGE_STATS_ENABLED": "0", "RAY_AUTH_MODE": "disabled"}
+    port = _free_port()
+    address = f"127.0.0.1:{port}"
+    q = _quick()
+    spec = _write_spec(tmp_path / "tiny.yaml", {"base": _tiny_base(), "seeds": [0, 1], "axes": q["axes"],
+                                                "baseline": q["baseline"]})
+    local, sweep = tmp_path / "local_sweep", tmp_path / "cluster_sweep"
+    assert main(["ablate", str(spec), "--out", str(local), "--workers", "2", "--quiet"]) == 0
+    nodes = []
+    try:  # --block keeps each node in the foreground, so that SIGTERM stops it and only it
+        for args in (["--head", f"--port={port}", "--include-dashboard=false"], [f"--address={address}"]):
+            log = open(tmp_path / f"node{len(nodes)}.log", "w")  # noqa: SIM115 - closed with the node
+            nodes.append((subprocess.Popen([str(ray_cli), "start", "--block", "--node-ip-address=127.0.0.1",
+                                            "--num-cpus=1", *args],
+                                           env=env, stdout=log, stderr=subprocess.STDOUT), log))
+            if len(nodes) == 1:
+                time.sleep(3)
+        deadline = time.monotonic() + 120
+        while True:
+            alive = subprocess.run([sys.executable, "-c", NODES_ALIVE, address], env=env, capture_output=True,
+                                   text=True, timeout=120)
+            if alive.returncode == 0 and alive.stdout.strip().splitlines()[-1:] == ["2"]:
+                break
+            assert time.monotonic() < deadline, (alive.stderr[-2000:], (tmp_path / "node1.log").read_text())
+            time.sleep(1)
+        capsys.readouterr()
+        old = {k: os.environ.get(k) for k in ("RAY_USAGE_STATS_ENABLED", "RAY_AUTH_MODE")}
+        os.environ.update(RAY_USAGE_STATS_ENABLED="0", RAY_AUTH_MODE="disabled")
+        try:
+            code = main(["ablate", str(spec), "--out", str(sweep), "--backend", "ray", "--address", address,
+                         "--workers", "2"])
+        finally:
+            for k, v in old.items():
+                os.environ.pop(k, None) if v is None else os.environ.__setitem__(k, v)
+        assert code == 0 and "done 4, failed 0" in capsys.readouterr().out
+    finally:
+        for proc, log in reversed(nodes):
+            proc.terminate()
+            try:
+                proc.wait(timeout=60)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait()
+            log.close()
+    rows, local_rows = _rows(sweep), _rows(local)
+    assert set(rows) == set(local_rows) and {r["worker"] for r in rows.values()} == {"ray"}
+    for rid in rows:  # the same config and seed give the same numbers, whichever machine ran them
+        assert rows[rid]["metrics"] == local_rows[rid]["metrics"], rid
+    _assert_ledger_matches_run_dirs(sweep, total_steps=200)
+
+
 # ------------------------------------------------------------------------- SIGKILL, then a rerun
 @pytest.mark.skipif(not sys.platform.startswith("linux"), reason="PR_SET_PDEATHSIG and /proc are Linux's")
 def test_sigkill_mid_sweep_then_rerun_completes(tmp_path):
