@@ -63,6 +63,7 @@ import yaml
 from envs.metrics import BEHAVIOUR_NAMES, METRIC_NAMES
 from marl_core.ablation import stats
 from marl_core.ablation.ledger import Ledger
+from marl_core.ablation.spec import flat_config
 from marl_core.errors import ConfigError, MissingExtraError, RunDirError
 from marl_core.files import atomic_write, write_json
 from marl_core.hints import command
@@ -388,19 +389,6 @@ def _not_better(arm: str, metric: str, entry: dict[str, Any]) -> dict[str, Any]:
             "team": team, "team_mean": value, "reason": why, "sentence": text}
 
 
-def _flat(data: Any, prefix: str = "") -> dict[str, Any]:
-    """A nested config mapping as ``{dotted key: value}``."""
-    if not isinstance(data, dict):
-        return {}
-    out: dict[str, Any] = {}
-    for key, value in data.items():
-        if isinstance(value, dict) and value:
-            out.update(_flat(value, f"{prefix}{key}."))
-        else:
-            out[f"{prefix}{key}"] = value
-    return out
-
-
 def _asked(source: str | None) -> bool:
     return source is not None and (source == "set" or source == "axes" or source.startswith("arms."))
 
@@ -420,7 +408,7 @@ def _config_differences(arms: list[str], done: dict[str, list[dict]], baseline: 
         runs = [r for r in done.get(a, []) if isinstance(r.get("config"), dict)]
         if not runs:
             return None
-        flat = _flat(runs[0]["config"])
+        flat = flat_config(runs[0]["config"])
         flat.pop(_SEED_KEY, None)
         return flat
 
