@@ -21,7 +21,7 @@ from typing import Any
 from envs.errors import ActionError, EnvError, LayoutError, ParamError
 from envs.params import nearest
 
-__all__ = ["GAMES", "make", "make_vector", "list_envs", "game_module",
+__all__ = ["GAMES", "make", "make_vector", "list_envs", "game_module", "declared_metrics",
            "EnvError", "ParamError", "LayoutError", "ActionError"]
 
 GAMES: tuple[str, ...] = ("harvest_v0", "cleanup_v0", "matrix_v0")
@@ -34,6 +34,16 @@ def game_module(name: str) -> ModuleType:
         hint = f"; did you mean {', '.join(repr(c) for c in close)}?" if close else ""
         raise ParamError(f"unknown game '{name}'{hint} (registered: {', '.join(GAMES)})")
     return importlib.import_module(f"envs.{name}")
+
+
+def declared_metrics(name: str) -> tuple[str, ...]:
+    """The social outcome metrics (``envs.metrics.METRIC_NAMES``) that mean something in the game ``name``,
+    as its module declares them in ``METRICS``: all four in the grid games, efficiency alone in the matrix
+    games (no resource, no tagging, returns that may be negative). A game we did not write (``module:
+    callable``, ``gymnasium:ID``) declares none: it is reported by its returns only."""
+    if name not in GAMES:
+        return ()
+    return tuple(getattr(game_module(name), "METRICS", ()))
 
 
 def make(name: str, **params: Any):

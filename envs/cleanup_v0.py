@@ -87,11 +87,14 @@ from envs.core import GameParallelEnv
 from envs.errors import LayoutError
 from envs.grid import _S_GROW, _S_WASTE, GridGame, _odd, grid_params
 from envs.layouts import Layout
+from envs.metrics import METRIC_NAMES
 from envs.params import Param
 
 __all__ = ["NAME", "PARAMS", "RENAMED", "CleanupGame", "CleanupParallelEnv", "parallel_env", "env", "vector_env"]
 
 NAME = "cleanup_v0"
+#: the social outcome metrics that mean something here (envs.declared_metrics)
+METRICS: tuple[str, ...] = METRIC_NAMES
 
 PARAMS: list[Param] = grid_params("cleanup_small", [
     Param("clean_length", int, 5, "clean beam reach in cells", low=1, high=50),

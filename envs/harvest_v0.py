@@ -94,11 +94,14 @@ from envs.core import GameParallelEnv
 from envs.errors import LayoutError
 from envs.grid import _S_GROW, GridGame, grid_params
 from envs.layouts import Layout
+from envs.metrics import METRIC_NAMES
 from envs.params import Param
 
 __all__ = ["NAME", "PARAMS", "HarvestGame", "HarvestParallelEnv", "parallel_env", "env", "vector_env"]
 
 NAME = "harvest_v0"
+#: the social outcome metrics that mean something here (envs.declared_metrics)
+METRICS: tuple[str, ...] = METRIC_NAMES
 
 PARAMS: list[Param] = grid_params("harvest_small", [
     Param("regrow_radius", int, 2, "radius (Euclidean) of the neighbourhood counted for regrowth",

@@ -119,6 +119,8 @@ __all__ = ["NAME", "PARAMS", "TABLES", "MatrixGame", "MatrixParallelEnv", "paral
            "vector_env", "build_table", "resolve_params"]
 
 NAME = "matrix_v0"
+#: efficiency only: no resource to sustain, no tagging, returns that may be negative
+METRICS: tuple[str, ...] = ("efficiency",)
 
 MAX_AGENTS = 16
 

@@ -193,6 +193,15 @@ def _single_agent(result: dict) -> bool:
     return len(result.get("returns") or {}) == 1
 
 
+def _social(result: dict) -> tuple[str, ...]:
+    """The social metrics to show: those the game declares (``summary.json``'s ``metrics``; an older
+    summary without it shows all four), none for a team of one agent."""
+    if _single_agent(result):
+        return ()
+    declared = result.get("metrics")
+    return SOCIAL if declared is None else tuple(m for m in SOCIAL if m in declared)
+
+
 def _table(summary: dict) -> str:
     """The learned team beside every baseline team (columns), one row per metric; a team of one agent
     gets its return only (and a note why)."""
@@ -204,7 +213,7 @@ def _table(summary: dict) -> str:
     teams = {n: teams[n] for n in sorted(teams, key=lambda n: (order.get(n, len(order)), n))}
     width = max(10, *(len(n) + 2 for n in teams))
     single = _single_agent(summary)
-    rows = [("return", "return_mean")] if single else [(k, k) for k in ("return_mean", *SOCIAL)]
+    rows = [("return", "return_mean")] if single else [(k, k) for k in ("return_mean", *_social(summary))]
     lines = [f"{'':<16}{'learned':>{width}}" + "".join(f"{n:>{width}}" for n in teams)]
     for label, key in rows:
         lines.append(f"{label:<16}{_fmt(summary.get(key)):>{width}}"
@@ -217,6 +226,9 @@ def _table(summary: dict) -> str:
                      + "".join(f"{_fmt(per_round(teams[n])):>{width}}" for n in teams))
     if single:
         lines.append("(one agent: the social metrics need a team and are not shown; summary.json keeps them)")
+    elif len(_social(summary)) < len(SOCIAL):
+        shown = ", ".join(_social(summary)) or "none"
+        lines.append(f"(social metrics this game declares: {shown}; the others mean nothing here)")
     return "\n".join(lines)
 
 
@@ -229,8 +241,7 @@ def _clock(seconds: float) -> str:
 def _eval_line(step: int, total: int, elapsed: float, rate: float, last: dict) -> str:
     """One plain progress line: steps, elapsed time, steps/s and the evaluation's key metrics."""
     metrics = f"return {_fmt(last.get('return_mean'))}"
-    if not _single_agent(last):
-        metrics += "".join(f"  {k} {_fmt(last.get(k))}" for k in SOCIAL)
+    metrics += "".join(f"  {k} {_fmt(last.get(k))}" for k in _social(last))
     return f"step {step}/{total}  elapsed {_clock(elapsed)}  {rate:,.0f} steps/s  eval {metrics}"
 
 

@@ -59,6 +59,7 @@ from typing import Any
 import numpy as np
 import torch
 
+import envs
 from envs.metrics import METRIC_NAMES
 from marl_core.baselines import measure as measure_baselines
 from marl_core.baselines import measured_teams
@@ -306,7 +307,7 @@ class _Run:
         act = self.acting(self.eval_env)
         ev = evaluate(self.eval_env, lambda o: act(o, explore=False),
                       self.cfg.train.eval_episodes, self.cfg.train.seed + EVAL_SEED_OFFSET, gif=gif)
-        self.last_eval = _result(ev)
+        self.last_eval = {**_result(ev), "metrics": list(envs.declared_metrics(self.cfg.env.name))}
         self.log_eval(ev)
         if final and ev.get("frames"):
             from envs.render import write_gif
@@ -442,7 +443,8 @@ class _Run:
                 policy.save(self.out / "policies" / f"{agent}.pt")
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
                    "random": self.baselines["random"], "baselines": self.baselines, **self._data_summary(),
-                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
+                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed,
+                   "metrics": list(envs.declared_metrics(self.cfg.env.name))}
         if self.cfg.seats:
             summary["groups"] = self.learner.group_results(self.last_eval["returns"])
         write_json(self.out / "summary.json", summary)
@@ -590,7 +592,8 @@ class _LolaRun(_Run):
         summary = {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
                    **self.last_eval, "random": self.baselines["random"], "baselines": self.baselines,
                    "closed_form": self.learner.closed_form(), "policies": self._policies(),
-                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed}
+                   "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed,
+                   "metrics": list(envs.declared_metrics(self.cfg.env.name))}
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:
             self.writer.close()

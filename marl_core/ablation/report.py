@@ -216,7 +216,7 @@ def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
         "duration": row.get("duration"), "overrides": overrides, "run_dir": str(run_dir),
         "error": _last_line(row.get("error")), "env_steps": None, "episodes": None,
         **dict.fromkeys(METRICS, math.nan), "returns": {}, "random": dict.fromkeys(METRICS, math.nan),
-        "baselines": {}, "source": None, "config": None, "curve": None, "problems": [],
+        "baselines": {}, "source": None, "config": None, "curve": None, "problems": [], "declared": None,
     }
     if row["state"] != "done":
         return rec
@@ -232,6 +232,9 @@ def _load_run(sweep: Path, row: dict[str, Any]) -> dict[str, Any]:
         summary = {}
         problems.append(f"run `{run_id}` ({row['arm']}, seed {row['seed']}) is done but has neither "
                         "summary.json nor metrics in the ledger; it counts as NaN")
+    declared = summary.get("metrics")
+    if isinstance(declared, list):  # the social metrics the game declares (an older summary: all)
+        rec["declared"] = [str(m) for m in declared]
     for key in ("env_steps", "episodes"):
         value = summary.get(key)
         rec[key] = int(value) if isinstance(value, numbers.Real) and not isinstance(value, bool) else None
@@ -521,6 +524,12 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     # the metrics, then the behaviour measures some done run records (e.g. waste_removed on cleanup only)
     measures = [*METRICS, *(b for b in BEHAVIOUR
                             if any(math.isfinite(r.get(b, math.nan)) for a in arms for r in done[a]))]
+    # a social metric appears only where some run's game declares it (envs.declared_metrics); the return
+    # always does, and a summary that predates the declaration counts as declaring every metric
+    everyone = [r for a in arms for r in done[a]]
+    if everyone:
+        measures = [m for m in measures if m == "return_mean" or m not in METRICS
+                    or any(r["declared"] is None or m in r["declared"] for r in everyone)]
 
     # ---- baseline
     baseline = data["baseline"]
@@ -577,7 +586,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                 xb = np.array([r.get(m, math.nan) for r in done[baseline]], dtype=float)
                 comparisons[a][m] = stats.compare(xa, xb, test, reps=reps, confidence=CONFIDENCE, seed=seed)
         families = ([[(a, m) for a in others] for m in measures] if holm_family == "metric"
-                    else [[(a, m) for m in METRICS for a in others],
+                    else [[(a, m) for m in METRICS if m in measures for a in others],
                           [(a, m) for m in measures if m not in HIGHER_IS_BETTER for a in others]])
         families = [f for f in families if f]
         for family in families:
@@ -627,7 +636,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
             warns.append(f"Arm `{a}` has {n} done seeds (of {arm_info[a]['runs']}), fewer than {FEW_SEEDS}: "
                          "its intervals are wide and rough, its tests weak.")
     for a in arms:
-        for m in METRICS:  # a behaviour measure a game does not record is simply absent, not a warning
+        for m in (m for m in METRICS if m in measures):  # a behaviour measure a game lacks is simply absent
             k = arm_info[a]["metrics"][m]["nan_dropped"]
             if k:
                 why = {"sustainability": " (no agent received a positive reward)",
@@ -688,7 +697,7 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
         "interval_methods": stats.INTERVAL_METHODS,
         "warnings": warns, "failed": failed, "runs_total": total, "runs_done": n_done,
         "test": test, "reps": reps, "seed": seed, "confidence": CONFIDENCE, "holm_family": holm_family,
-        "metrics": list(METRICS), "measures": measures, "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
+        "metrics": [m for m in METRICS if m in measures], "measures": measures, "games": games, "learners": learners, "spec_seeds": spec.get("seeds"),
         "smoke_test": spec.get("smoke_test") is True,
         "runs": [{k: v for k, v in r.items() if k not in ("config", "curve", "problems")} for r in runs],
     }
@@ -1095,12 +1104,12 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     pct = f"{summary['confidence']:.0%}"
     n_others = len([a for a in arms if a != base])
     family = (f"one family per metric: that metric's {n_others} arm-vs-baseline comparison(s); the "
-              f"{len(METRICS)} metrics are not corrected against each other (they are different questions, "
+              f"{len(summary['metrics'])} metrics are not corrected against each other (they are different questions, "
               "and return_mean and efficiency are nearly the same number)"
               if summary["holm_family"] == "metric" else
-              f"one family of every arm × metric comparison ({n_others} × {len(METRICS)} = "
-              f"{n_others * len(METRICS)})" + (", and one of every arm × behaviour measure comparison"
-                                               if len(summary["measures"]) > len(METRICS) else ""))
+              f"one family of every arm × metric comparison ({n_others} × {len(summary['metrics'])} = "
+              f"{n_others * len(summary['metrics'])})" + (", and one of every arm × behaviour measure comparison"
+                                               if len(summary["measures"]) > len(summary['metrics']) else ""))
     clipped = {f"`{_md(a)}` {m}" for a in arms for m, e in info[a]["metrics"].items() if e.get("clipped")}
     L: list[str] = []
     add = L.append

@@ -641,3 +641,22 @@ def test_intervals_are_clipped_to_the_metrics_range_and_bars_show_each_seed(tmp_
     assert peace["range"] == (0.0, 3.0) and sorted(peace["values"]) == [2.9, 3.0, 3.0]
     text = (write_report(root, reps=REPS) / "report.md").read_text()
     assert "clipped here: `base` peace" in text
+
+
+def test_a_metric_appears_only_where_the_game_declares_it(tmp_path):
+    # a matrix game declares efficiency alone (envs.declared_metrics): no equality, sustainability or peace
+    # in the tables, findings or figures
+    root = make_sweep(tmp_path / "matrix", arms=ARMS[:2], seeds=(0, 1, 2), failed=None, nan=None)
+    for summary_file in (root / "runs").glob("*/summary.json"):
+        data = json.loads(summary_file.read_text())
+        data["metrics"] = ["efficiency"]
+        summary_file.write_text(json.dumps(data))
+    s = report_summary(root, reps=REPS)
+    assert s["metrics"] == ["return_mean", "efficiency"]
+    assert not {"equality", "sustainability", "peace"} & set(s["measures"])
+    out = write_report(root, reps=REPS)
+    drawn = {p.name for p in (out / "figures").glob("*.png")}
+    assert {n for n in drawn if not n.startswith("axis_")} == {
+        f"{kind}_{m}.png" for kind in ("bars", "curve") for m in ("return_mean", "efficiency")}
+    assert all(n.endswith(("_return_mean.png", "_efficiency.png")) for n in drawn)
+    assert "### peace" not in (out / "report.md").read_text()
