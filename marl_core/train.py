@@ -18,7 +18,11 @@ checkpoint. Layout of a run directory::
 seeds that every evaluation of the learned team uses, for ``train.eval_episodes`` episodes. On our games
 it also has ``behaviour`` (resources taken, tags fired, times tagged and, on cleanup, waste removed, per
 agent per episode, the mean over agents) and ``behaviour_per_agent`` (agent -> the same counts), for the
-learned team and each baseline; TensorBoard has them as ``eval/behaviour/*``.
+learned team and each baseline; TensorBoard has them as ``eval/behaviour/*``. ``metrics`` lists the social
+metrics the game declares (``envs.declared_metrics``; the others are computed but mean nothing there), and
+``wall_seconds`` the wall-clock time the run took over all its sessions (a resumed run's clock goes on
+from its checkpoint); each line of ``metrics.jsonl`` has the time of its evaluation. Same config and seed
+give the same numbers, ``wall_seconds`` aside.
 
 The replay ratio, samples drawn per env step collected (``learner.replay_ratio``, or what ``train_every``
 and ``updates_per_round`` give), is in ``summary.json`` as ``replay_ratio``, beside
@@ -171,6 +175,7 @@ class _Run:
         self.last_eval: dict[str, Any] | None = None
         self.progress = progress
         self.writer = None
+        self.elapsed_before, self.clock = 0.0, time.perf_counter()  # wall time of earlier sessions; this one's start
 
     def _make_store(self, state_space: Any) -> None:
         """The replay the learner samples from."""
@@ -203,7 +208,13 @@ class _Run:
     # -- checkpoints
     def _counters(self) -> dict[str, Any]:
         return {"env_steps": self.env_steps, "vec_steps": self.vec_steps, "episodes": self.episodes,
-                "evals": self.evals, "samples": self.samples, "learn_steps": self.learn_steps, "owed": self.owed}
+                "evals": self.evals, "samples": self.samples, "learn_steps": self.learn_steps, "owed": self.owed,
+                "elapsed": self.wall_seconds()}
+
+    def wall_seconds(self) -> float:
+        """Wall-clock seconds the run has taken, over every session (a resumed run goes on from where its
+        checkpoint left; the time between sessions does not count)."""
+        return self.elapsed_before + time.perf_counter() - self.clock
 
     def _extra_state(self) -> dict[str, Any]:
         return {"replay_rng": self.replay.rng_state()}
@@ -235,6 +246,7 @@ class _Run:
         self.samples, self.learn_steps = int(c.get("samples", 0)), int(c.get("learn_steps", -1))
         self.owed = float(c.get("owed", 0.0))
         self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
+        self.elapsed_before, self.clock = float(c.get("elapsed", 0.0)), time.perf_counter()
         self.learner.load_state_dict(data["learner"])
         self._load_extra_state(data)
         torch.set_rng_state(data["torch_rng"])
@@ -278,7 +290,8 @@ class _Run:
             self.writer.add_scalar(tag, value, self.count())
 
     def log_eval(self, ev: dict[str, Any]) -> None:
-        row = {"env_steps": self.env_steps, self.COUNTER: self.count(), "episodes": self.episodes, **_result(ev)}
+        row = {"env_steps": self.env_steps, self.COUNTER: self.count(), "episodes": self.episodes,
+               "wall_seconds": round(self.wall_seconds(), 3), **_result(ev)}
         with open(self.out / "metrics.jsonl", "a") as f:
             f.write(json.dumps(finite(row), sort_keys=True) + "\n")
         for m in (*METRIC_NAMES, "return_mean"):
@@ -444,7 +457,8 @@ class _Run:
         summary = {"env_steps": self.env_steps, "episodes": self.episodes, **self.last_eval,
                    "random": self.baselines["random"], "baselines": self.baselines, **self._data_summary(),
                    "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed,
-                   "metrics": list(envs.declared_metrics(self.cfg.env.name))}
+                   "metrics": list(envs.declared_metrics(self.cfg.env.name)),
+                   "wall_seconds": round(self.wall_seconds(), 3)}
         if self.cfg.seats:
             summary["groups"] = self.learner.group_results(self.last_eval["returns"])
         write_json(self.out / "summary.json", summary)
@@ -522,6 +536,7 @@ class _LolaRun(_Run):
         self.last_eval: dict[str, Any] | None = None
         self.progress = progress
         self.writer = None
+        self.elapsed_before, self.clock = 0.0, time.perf_counter()  # wall time of earlier sessions; this one's start
 
     def count(self) -> int:
         return self.updates
@@ -531,7 +546,7 @@ class _LolaRun(_Run):
 
     def _counters(self) -> dict[str, Any]:
         return {"updates": self.updates, "env_steps": self.env_steps, "episodes": self.episodes,
-                "evals": self.evals}
+                "evals": self.evals, "elapsed": self.wall_seconds()}
 
     def _extra_state(self) -> dict[str, Any]:
         return {}
@@ -542,6 +557,7 @@ class _LolaRun(_Run):
         self.updates, self.env_steps = int(c["updates"]), int(c["env_steps"])
         self.episodes, self.evals = int(c["episodes"]), int(c["evals"])
         self.baselines, self.last_eval = json.loads(data["baselines"]), json.loads(data["last_eval"])
+        self.elapsed_before, self.clock = float(c.get("elapsed", 0.0)), time.perf_counter()
         self.learner.load_state_dict(data["learner"])
         torch.set_rng_state(data["torch_rng"])
 
@@ -593,7 +609,8 @@ class _LolaRun(_Run):
                    **self.last_eval, "random": self.baselines["random"], "baselines": self.baselines,
                    "closed_form": self.learner.closed_form(), "policies": self._policies(),
                    "learner": self.cfg.learner.kind, "env": self.cfg.env.name, "seed": self.cfg.train.seed,
-                   "metrics": list(envs.declared_metrics(self.cfg.env.name))}
+                   "metrics": list(envs.declared_metrics(self.cfg.env.name)),
+                   "wall_seconds": round(self.wall_seconds(), 3)}
         write_json(self.out / "summary.json", summary)
         if self.writer is not None:
             self.writer.close()

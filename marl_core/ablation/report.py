@@ -10,7 +10,9 @@ and writes ``sweep_dir/report/``::
                                   that are not better than the strongest non-learning team, Table 2 per
                                   metric (each arm vs the baseline arm), links to the figures
     runs.csv                      one row per run of the ledger, every state
-    figures/curve_<metric>.png    learning curves: mean over seeds, 95% Student t band, random team dashed
+    figures/curve_<metric>.png    learning curves: each seed thin, mean over seeds, 95% Student t band, random
+                                  team dashed
+    figures/time_<metric>.png     the same against wall-clock minutes (runs that recorded their times)
     figures/bars_<metric>.png     IQM per arm with its 95% trimmed-mean t interval, the baseline hatched
     figures/axis_<key>_<metric>.png  for every numeric override key: the metric (mean, Student t) against it
 
@@ -604,6 +606,11 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
                          f"{len(with_curve)} seed(s).")
         steps = sorted(set.intersection(*(set(r["curve"]) for r in with_curve))) if with_curve else []
         curves[a] = {"seeds": len(with_curve), "env_steps": steps}
+        # wall-clock seconds at each step (runs written before metrics.jsonl kept them have none: NaN)
+        clock = np.array([[_float(r["curve"][s].get("wall_seconds")) for s in steps] for r in with_curve])
+        curves[a]["wall_seconds_per_seed"] = clock.tolist()
+        curves[a]["wall_seconds"] = (clock.mean(axis=0).tolist() if clock.size and np.isfinite(clock).all()
+                                     else [])
         for m in measures:
             if not steps:
                 curves[a][m] = {"mean": [], "ci_low": [], "ci_high": []}
@@ -1247,6 +1254,7 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
         add("No figures: no arm has a done run.\n")
     titles = {"curve": f"Learning curves (mean over seeds, {pct} Student t band at each step; random team "
                        "dashed)",
+              "time": "Learning curves against wall-clock minutes (each seed thin, the mean thick)",
               "bars": f"IQM per arm with its {pct} trimmed-mean t interval (baseline hatched)",
               "axis": f"Metrics against numeric override keys (mean with its {pct} Student t interval)"}
     for kind, names in figures.items():
@@ -1331,6 +1339,32 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
     ax.set_title(f"{m} during training: each seed (thin), mean over seeds, {summary['confidence']:.0%} "
                  "Student t band",
                  fontsize=10)
+    ax.grid(alpha=0.3)
+    _legend(ax)
+    _save(fig, path)
+    return True
+
+
+def _time_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
+    """The learning curve of ``m`` against wall-clock minutes: each seed thin, the arm's mean (mean time,
+    mean value at each evaluation step) thick; arms whose runs kept no times are left out."""
+    Figure, Canvas = _matplotlib()
+    curves, base = summary["curves"], summary["baseline"]
+    arms = [a for a in summary["arm_order"] if curves[a]["env_steps"] and curves[a].get("wall_seconds")]
+    if not arms:
+        return False
+    fig = Figure(figsize=(7.5, 4.5))
+    Canvas(fig)
+    ax = fig.add_subplot()
+    for a in arms:
+        c = curves[a]
+        for clock, row in zip(c["wall_seconds_per_seed"], c[m].get("per_seed", [])):
+            ax.plot(np.asarray(clock) / 60.0, row, color=colours[a], lw=0.6, alpha=0.35)
+        ax.plot(np.asarray(c["wall_seconds"]) / 60.0, c[m]["mean"], color=colours[a],
+                lw=2.4 if a == base else 1.6, label=f"{a} (baseline)" if a == base else a)
+    ax.set_xlabel("wall-clock minutes (one run per core, as the sweep ran)")
+    ax.set_ylabel(m)
+    ax.set_title(f"{m} against wall-clock time: each seed (thin), mean over seeds", fontsize=10)
     ax.grid(alpha=0.3)
     _legend(ax)
     _save(fig, path)
@@ -1456,10 +1490,13 @@ def _figures(summary: dict[str, Any], out: Path) -> dict[str, list[str]]:
     arms = summary["arm_order"]
     palette = _colours(max(1, len(arms)))
     colours = dict(zip(arms, palette))
-    made: dict[str, list[str]] = {"curve": [], "bars": [], "axis": []}
+    made: dict[str, list[str]] = {"curve": [], "time": [], "bars": [], "axis": []}
     for m in summary["measures"]:
         if _curve_figure(summary, m, out / f"curve_{m}.png", colours):
             made["curve"].append(f"figures/curve_{m}.png")
+    for m in summary["measures"]:
+        if _time_figure(summary, m, out / f"time_{m}.png", colours):
+            made["time"].append(f"figures/time_{m}.png")
     for m in summary["measures"]:
         if _bars_figure(summary, m, out / f"bars_{m}.png", colours):
             made["bars"].append(f"figures/bars_{m}.png")

@@ -660,3 +660,21 @@ def test_a_metric_appears_only_where_the_game_declares_it(tmp_path):
         f"{kind}_{m}.png" for kind in ("bars", "curve") for m in ("return_mean", "efficiency")}
     assert all(n.endswith(("_return_mean.png", "_efficiency.png")) for n in drawn)
     assert "### peace" not in (out / "report.md").read_text()
+
+
+def test_curves_against_wall_clock_time_when_runs_record_it(tmp_path):
+    root = _sweep_from_spec(tmp_path / "clock", {"base": "harvest_idqn.yaml", "seeds": [0, 1],
+                                                 "set": {"train.total_steps": 500}})
+    for run in (root / "runs").iterdir():  # invented times (demo only): seed k's run is 10 k s slower
+        k = yaml.safe_load((run / "config.yaml").read_text())["train"]["seed"]
+        rows = [json.loads(x) for x in (run / "metrics.jsonl").read_text().splitlines()]
+        with open(run / "metrics.jsonl", "w") as f:
+            for i, row in enumerate(rows):
+                f.write(json.dumps({**row, "wall_seconds": 60.0 * (i + 1) + 10 * k}) + "\n")
+    s = report_summary(root, reps=REPS)
+    c = s["curves"]["base"]
+    assert c["wall_seconds_per_seed"] == [[60.0 * (i + 1) + 10 * k for i in range(len(STEPS))] for k in (0, 1)]
+    assert c["wall_seconds"] == pytest.approx([60.0 * (i + 1) + 5 for i in range(len(STEPS))])
+    out = write_report(root, reps=REPS)
+    assert (out / "figures" / "time_efficiency.png").is_file()
+    assert "Learning curves against wall-clock minutes" in (out / "report.md").read_text()
