@@ -49,7 +49,10 @@ class _Parser(argparse.ArgumentParser):
 
 
 def _parser() -> argparse.ArgumentParser:
+    from marl_core import __version__
+
     p = _Parser(prog="marl-core", description="Train and study small teams of agents on social dilemmas.")
+    p.add_argument("--version", action="version", version=f"marl-core {__version__}")
     sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
     d = sub.add_parser("demo", help="scripted teams play harvest and cleanup; write GIFs, print metrics")
     d.add_argument("--out", default="runs/demo", help="directory for the GIFs (default: runs/demo)")
@@ -58,8 +61,8 @@ def _parser() -> argparse.ArgumentParser:
     d.add_argument("--steps", type=int, default=1000, help="episode length, max_cycles (default: 1000)")
     d.add_argument("--no-gif", action="store_true", help="skip the GIFs")
     t = sub.add_parser("train", help="train a team from a YAML config into a run directory")
-    t.add_argument("config", nargs="?", help="YAML config (see configs/)")
-    t.add_argument("--out", help="new run directory")
+    t.add_argument("config", nargs="?", metavar="CONFIG", help="YAML config (see configs/)")
+    t.add_argument("--out", metavar="RUN_DIR", help="new run directory")
     t.add_argument("--set", action="append", default=[], metavar="KEY=VALUE",
                    help="override a config key, e.g. --set learner.lr=1e-3 (repeatable)")
     t.add_argument("--resume", metavar="RUN_DIR", help="continue a run from its last checkpoint")
@@ -67,7 +70,7 @@ def _parser() -> argparse.ArgumentParser:
                    "the default when stdout is not a terminal)")
     v = sub.add_parser("evaluate", help="evaluate a run's last checkpoint with exploration off (ppo: as "
                        "learner.eval_policy says)")
-    v.add_argument("run_dir")
+    v.add_argument("run_dir", metavar="RUN_DIR", help="a run directory written by train")
     v.add_argument("--episodes", type=int, help="episodes to play, by the learned team and by every baseline "
                    "team on the same seeds (default: the run's train.eval_episodes)")
     v.add_argument("--json", action="store_true", help="print JSON (same metric keys as summary.json)")
@@ -84,16 +87,18 @@ def _parser() -> argparse.ArgumentParser:
                    "each) and print what the sweep at --size would cost")
     a.add_argument("--json", action="store_true", help="with --estimate: print JSON")
     a.add_argument("--workers", type=int, help="runs at once (default: the number of CPUs)")
-    a.add_argument("--backend", default="local", help="local (process pool, default) or ray")
+    a.add_argument("--backend", default="local", choices=("local", "ray"),
+                   help="local (a process per run, default) or ray (pip install \".[ray]\")")
     a.add_argument("--address", help="ray: address of an existing cluster (default: start a local one)")
     a.add_argument("--retry-failed", action="store_true", help="run failed runs again")
     a.add_argument("--quiet", action="store_true", help="no progress display")
     st = sub.add_parser("status", help="a table of every run of a sweep")
-    st.add_argument("sweep_dir")
-    st.add_argument("--json", action="store_true")
+    st.add_argument("sweep_dir", metavar="SWEEP_DIR", help="a sweep directory written by ablate")
+    st.add_argument("--json", action="store_true", help="print JSON (one object per run)")
     rp = sub.add_parser("report", help="write SWEEP_DIR/report/: report.md, runs.csv, figures")
-    rp.add_argument("sweep_dir")
-    rp.add_argument("--test", default="mannwhitney", help="mannwhitney (default) or welch")
+    rp.add_argument("sweep_dir", metavar="SWEEP_DIR", help="a sweep directory written by ablate")
+    rp.add_argument("--test", default="mannwhitney", choices=("mannwhitney", "welch"),
+                    help="the test against the baseline arm: mannwhitney (default) or welch")
     c = sub.add_parser("crossplay", help="seat agents of different runs together and evaluate every seating")
     c.add_argument("run_dirs", nargs="+", metavar="RUN_DIR", help="finished run directories (LABEL=RUN_DIR "
                    "groups runs under one label, as seeds of one source)")
@@ -427,16 +432,14 @@ def _ablate(args: argparse.Namespace) -> int:
     if not args.out:
         raise UsageError("ablate needs --out SWEEP_DIR (the sweep directory), or --estimate")
 
-    shown = {"t": 0.0}
+    shown: dict[str, dict | None] = {"counts": None}
 
     def progress(counts: dict, eta: float | None) -> None:
-        import time
-
-        now = time.monotonic()
+        # one line whenever a run starts or ends (the counts change), on a terminal or piped alike
         total = sum(counts.values())
-        if args.quiet or (now - shown["t"] < 2.0 and counts.get("running", 0)):
+        if args.quiet or counts == shown["counts"]:
             return
-        shown["t"] = now
+        shown["counts"] = dict(counts)
         left = "" if eta is None else f"  ETA {eta / 60:.1f} min"
         print(f"runs {total}: done {counts.get('done', 0)}, running {counts.get('running', 0)}, "
               f"failed {counts.get('failed', 0)}, pending {counts.get('pending', 0)}{left}", flush=True)
@@ -507,9 +510,19 @@ def _crossplay(args: argparse.Namespace) -> int:
     return 0
 
 
+def _check_set_pairs(argv: list[str]) -> None:
+    """``--set KEY VALUE`` (a space for the ``=``) would read VALUE as a stray argument: say the fix."""
+    for i, token in enumerate(argv[:-1]):
+        if token == "--set" and "=" not in argv[i + 1]:
+            key = argv[i + 1]
+            value = argv[i + 2] if i + 2 < len(argv) and not argv[i + 2].startswith("--") else "VALUE"
+            raise UsageError(f"--set {key}: expected KEY=VALUE with an '=' (e.g. --set {key}={value})")
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     args = None
     try:
+        _check_set_pairs(list(sys.argv[1:] if argv is None else argv))
         args = _parser().parse_args(argv)
         return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate, "ablate": _ablate,
                 "status": _status, "report": _report, "crossplay": _crossplay}[args.command](args)

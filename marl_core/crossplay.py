@@ -89,6 +89,8 @@ def _parse_sources(items: list[str], members: list[str]) -> list[Source]:
 
 def _game_of(run: Path) -> tuple[str, dict[str, Any]]:
     if not (run / "config.yaml").is_file():
+        if not Path(run).exists():
+            raise RunDirError(f"crossplay: run directory '{run}' does not exist")
         raise RunDirError(f"crossplay: '{run}' is not a run directory (no config.yaml)")
     cfg = load_stored_config(run / "config.yaml")
     return cfg.env.name, dict(cfg.env.params)

@@ -672,6 +672,8 @@ def load_run(out: str | Path) -> RunConfig:
     """The resolved config of an existing run directory."""
     out = Path(out)
     if not (out / "config.yaml").is_file():
+        if not out.exists():
+            raise RunDirError(f"run directory '{out}' does not exist")
         raise RunDirError(f"'{out}' is not a run directory (no config.yaml)")
     return load_stored_config(out / "config.yaml")
 

@@ -113,3 +113,23 @@ def test_envs_table_wraps_a_long_default_without_losing_it(capsys, monkeypatch):
     default = next(p for p in envs.harvest_v0.PARAMS if p.name == "regrow_table").default
     assert len(cell) > 1  # it is long enough to wrap at 100 columns
     assert " ".join(c for c in cell if c) == _shown(default)  # every value, in the README's spelling
+
+
+def test_small_cli_courtesies(tmp_path, capsys):
+    from marl_core import __version__
+
+    with pytest.raises(SystemExit) as done:  # argparse's version action prints and exits 0
+        main(["--version"])
+    assert done.value.code == 0 and capsys.readouterr().out.strip() == f"marl-core {__version__}"
+    # a space for the '=' in --set names the fix
+    assert main(["train", "configs/harvest_idqn.yaml", "--out", str(tmp_path / "r"), "--set", "learner.lr",
+                 "1e-3"]) == 2
+    assert capsys.readouterr().err.strip() == ("marl-core: error: --set learner.lr: expected KEY=VALUE with an "
+                                               "'=' (e.g. --set learner.lr=1e-3)")
+    assert not (tmp_path / "r").exists()
+    # a directory that does not exist says so
+    assert main(["evaluate", str(tmp_path / "typo")]) == 2
+    assert capsys.readouterr().err.strip() == f"marl-core: error: run directory '{tmp_path / 'typo'}' does not exist"
+    (tmp_path / "empty").mkdir()
+    assert main(["evaluate", str(tmp_path / "empty")]) == 2
+    assert "is not a run directory (no config.yaml)" in capsys.readouterr().err
