@@ -260,6 +260,7 @@ class _Progress:
         self.bar, self.task, self.last = None, None, None
         self.s0: int | None = None
         self.t0 = 0.0
+        self.offset = 0.0  # wall seconds of earlier sessions (a resumed run's clock goes on from there)
 
     def __enter__(self):
         return self
@@ -285,8 +286,9 @@ class _Progress:
             self.s0, self.t0, self.last = step, time.perf_counter(), last
             if not self.quiet:
                 self._start()
-        elapsed = time.perf_counter() - self.t0
-        rate = (step - self.s0) / max(elapsed, 1e-9)
+        session = time.perf_counter() - self.t0
+        rate = (step - self.s0) / max(session, 1e-9)
+        elapsed = self.offset + session
         ret = _fmt(last["return_mean"]) if last else "-"
         if self.bar is not None:
             if self.task is None:
@@ -317,7 +319,13 @@ def _train(args: argparse.Namespace) -> int:
         out = args.resume
         cfg = train.load_run(out)
         finished = train.finished_summary(out)
+        counters = train.checkpoint_counters(out) if finished is None else {}
         with _Interrupted(out), _Progress(args.quiet or not cfg.log.progress) as bar:  # progress: false = quiet
+            if counters:
+                key, total = train.budget(cfg)
+                bar.offset = float(counters.get("elapsed", 0.0))
+                print(f"resumed at step {int(counters.get(key, 0)):,} of {total:,} {key.replace('_', ' ')}, "
+                      f"{_clock(bar.offset)} into the run", flush=True)
             summary = train.resume(out, progress=bar)  # checks the checkpoint even when the run is finished
         if finished is not None:
             key, total = train.budget(cfg)

@@ -703,6 +703,15 @@ def budget(cfg: RunConfig) -> tuple[str, int]:
     return "env_steps", cfg.train.total_steps
 
 
+def checkpoint_counters(out: str | Path) -> dict[str, Any]:
+    """The counters of a run's last checkpoint (``env_steps``, ``episodes``, ``elapsed`` wall seconds over
+    earlier sessions, and ``updates`` for lola), read without building the run; {} when it has none."""
+    path = Path(out) / "checkpoints" / "last.pt"
+    if not path.is_file():
+        return {}
+    return dict(safe_torch_load(path, "checkpoint").get("counters", {}))
+
+
 def resume(out: str | Path,
            progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
     """Continue the run in ``out`` from its last checkpoint; return the summary."""

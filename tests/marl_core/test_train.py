@@ -238,6 +238,10 @@ def test_resume_reaches_total_steps(resumed):
     assert s["env_steps"] == RESUME_TOTAL
     assert SUMMARY_KEYS <= set(s)
     assert f"({RESUME_TOTAL} env steps" in resumed["stdout"]  # marl_core/cli.py _train() output
+    # it first says where it resumed, and its clock goes on from the earlier session (cli.py _train)
+    first = resumed["stdout"].splitlines()[0]
+    assert first.startswith(f"resumed at step {resumed['killed']['ckpt_step']:,} of {RESUME_TOTAL:,} env steps, ")
+    assert first.endswith(" into the run")
     for agent in ("agent_0", "agent_1"):
         assert (resumed["run"] / "policies" / f"{agent}.pt").is_file()
 
