@@ -314,9 +314,21 @@ def _train(args: argparse.Namespace) -> int:
     from marl_core import train
 
     if args.resume:
-        if args.config or args.out or args.set:
-            raise UsageError("train --resume RUN_DIR takes no CONFIG, --out or --set (the run keeps its config)")
+        if args.config or args.out:
+            raise UsageError("train --resume RUN_DIR takes no CONFIG or --out (the run keeps its config)")
+        extend = [x for x in args.set if x.partition("=")[0].strip() == "train.total_steps"]
+        if len(extend) != len(args.set):
+            raise UsageError("train --resume RUN_DIR takes only --set train.total_steps=M (to extend the run); "
+                             "every other key stays as the run ran")
         out = args.resume
+        if extend:
+            from marl_core.config import parse_config
+
+            cfg = train.load_run(out)  # the new budget is checked as any config value is
+            value = parse_config({"train": {"total_steps": cfg.train.total_steps}}, extend[-1:]).train.total_steps
+            old = train.extend_run(out, value)
+            if old != value:
+                print(f"extended: train.total_steps {old:,} -> {value:,}", flush=True)
         cfg = train.load_run(out)
         finished = train.finished_summary(out)
         counters = train.checkpoint_counters(out) if finished is None else {}

@@ -712,6 +712,44 @@ def checkpoint_counters(out: str | Path) -> dict[str, Any]:
     return dict(safe_torch_load(path, "checkpoint").get("counters", {}))
 
 
+def extend_run(out: str | Path, total_steps: int) -> int:
+    """Give a run a larger budget, ``train.total_steps = total_steps``, so that :func:`resume` continues it;
+    return the old budget. Its ``config.yaml`` and its checkpoint's config hash are rewritten (atomically)
+    to the new config, and a finished run's ``summary.json`` is kept as ``summary.<old steps>.json``.
+    Nothing else may change: a run is its config. ``lola`` counts updates and is refused.
+
+    Raises:
+        RunDirError / ConfigError: no checkpoint, a lola run, or ``total_steps`` not above the steps the
+            checkpoint has already taken (one line each).
+    """
+    out = Path(out)
+    cfg = load_run(out)
+    if cfg.learner.kind == "lola":
+        raise ConfigError("train.total_steps cannot extend a lola run: it counts learner.updates")
+    path = out / "checkpoints" / "last.pt"
+    if not path.is_file():
+        raise RunDirError(f"run directory '{out}' has no checkpoint to extend (checkpoints/last.pt)")
+    data = safe_torch_load(path, "checkpoint")
+    done = int(data["counters"]["env_steps"])
+    old = cfg.train.total_steps
+    if total_steps == old:
+        return old
+    if total_steps <= done:
+        raise ConfigError(f"train.total_steps = {total_steps} is not allowed: the run has taken {done} env "
+                          f"steps; expected more than that to extend it")
+    if data.get("config_hash") != config_hash(cfg):
+        raise CheckpointError(f"checkpoint '{path}' was written for a different config.yaml; restore the "
+                              "run's config.yaml first")
+    new = cfg.model_copy(update={"train": cfg.train.model_copy(update={"total_steps": int(total_steps)})})
+    summary = out / "summary.json"
+    if summary.is_file():
+        summary.replace(out / f"summary.{old}.json")
+    data["config_hash"] = config_hash(new)
+    atomic_torch_save(data, path)
+    dump_config(new, out / "config.yaml")
+    return old
+
+
 def resume(out: str | Path,
            progress: Callable[[int, int, dict | None], None] | None = None) -> dict[str, Any]:
     """Continue the run in ``out`` from its last checkpoint; return the summary."""
@@ -752,7 +790,7 @@ def evaluate_run(out: str | Path, episodes: int | None = None, gif: str | Path |
 
         write_gif(ev["frames"], gif)
     out_ = {"env_steps": r.env_steps, "episodes": r.episodes, **_result(ev), "random": baselines["random"],
-            "baselines": baselines}
+            "baselines": baselines, "metrics": list(envs.declared_metrics(cfg.env.name))}
     if isinstance(r, _LolaRun):
         out_ = {"updates": r.updates, **out_, "closed_form": r.learner.closed_form(), "policies": r._policies()}
     return out_

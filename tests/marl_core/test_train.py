@@ -25,7 +25,7 @@ import yaml
 from envs.metrics import METRIC_NAMES
 from marl_core import train
 from marl_core.cli import main
-from marl_core.config import load_config, parse_config
+from marl_core.config import load_config, load_stored_config, parse_config
 from marl_core.team_env import make_team_env
 
 CONFIGS = Path(__file__).resolve().parents[2] / "configs"
@@ -391,7 +391,8 @@ def test_evaluate_json_has_the_summary_metric_keys(finished_run, capsys):
     summary = json.loads((finished_run / "summary.json").read_text())
     assert SUMMARY_KEYS <= set(res)  # contract: evaluate_run docstring, "the keys match summary.json"
     # the summary's extra keys name the run or how it trained, not a metric (train.py _Run.finish)
-    assert set(res) == set(summary) - {"learner", "env", "seed", "replay_ratio", "replay_ratio_measured"}
+    assert set(res) == set(summary) - {"learner", "env", "seed", "replay_ratio", "replay_ratio_measured",
+                                       "wall_seconds"}
     assert set(res["random"]) == set(summary["random"])
     assert set(res["returns"]) == set(summary["returns"])
     assert res["env_steps"] == summary["env_steps"] == 400  # the last checkpoint is at total_steps
@@ -659,3 +660,21 @@ def test_team_train_table_keeps_the_social_metrics(finished_run, capsys):
     assert main(["evaluate", str(finished_run)]) == 0
     assert _table_rows(capsys.readouterr().out) == ["return_mean", "efficiency", "equality", "sustainability",
                                                    "peace"]
+
+
+def test_a_finished_run_is_extended_to_more_steps(arena, capsys):
+    run = Path(arena["RUN"])
+    first = json.loads((run / "summary.json").read_text())
+    assert main(["train", "--resume", str(run), "--set", "train.total_steps=800", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith("extended: train.total_steps 400 -> 800\nresumed at step 400 of 800 env steps, ")
+    summary = json.loads((run / "summary.json").read_text())
+    assert summary["env_steps"] == 800 and load_stored_config(run / "config.yaml").train.total_steps == 800
+    assert json.loads((run / "summary.400.json").read_text()) == first  # nothing is lost
+    assert _metric_steps(run) == [200, 400, 600, 800]  # it went on, each evaluation once
+    # only the budget may change, and only upwards past what the run has done
+    assert main(["train", "--resume", str(run), "--set", "learner.lr=0.01"]) == 2
+    assert "takes only --set train.total_steps=M" in capsys.readouterr().err
+    assert main(["train", "--resume", str(run), "--set", "train.total_steps=600"]) == 2
+    assert capsys.readouterr().err.strip() == ("marl-core: error: train.total_steps = 600 is not allowed: the run "
+                                               "has taken 800 env steps; expected more than that to extend it")
