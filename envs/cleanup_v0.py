@@ -71,9 +71,9 @@ the behaviour of the first release: truncation at ``max_cycles``). Later in v0: 
 parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="shared"``. Moves,
 observations, rewards and infos are unchanged for the same seed; only ``state()`` (and ``state_space``) differ.
 Later in v0: new bundled maps (a river winding between two orchards), and the growth rule above with its
-parameters ``pollution_rate``, ``growth_rate`` and ``pollution_cap``, which replace ``waste_spawn_prob``,
-``spawn_prob_max``, ``depletion_threshold`` and ``restoration_threshold`` (refused with a message naming the
-replacement). Episodes on the bundled maps differ from the first release's for the same seed.
+parameters ``pollution_rate``, ``growth_rate`` and ``pollution_cap``, which replace the first release's
+growth parameters (an old name is refused as unknown, with a note that parameters were renamed).
+Episodes on the bundled maps differ from the first release's for the same seed.
 """
 
 from __future__ import annotations
@@ -90,7 +90,7 @@ from envs.layouts import Layout
 from envs.metrics import METRIC_NAMES
 from envs.params import Param
 
-__all__ = ["NAME", "PARAMS", "RENAMED", "CleanupGame", "CleanupParallelEnv", "parallel_env", "env", "vector_env"]
+__all__ = ["NAME", "PARAMS", "RENAMED_NOTE", "CleanupGame", "CleanupParallelEnv", "parallel_env", "env", "vector_env"]
 
 NAME = "cleanup_v0"
 #: the social outcome metrics that mean something here (envs.declared_metrics)
@@ -107,14 +107,8 @@ PARAMS: list[Param] = grid_params("cleanup_small", [
           low=0.0, high=1.0, check=lambda v: "a number in (0.0, 1.0]" if v <= 0 else None),
 ])
 
-# Growth parameters of an earlier version of this game, refused with what replaced them.
-RENAMED: dict[str, str] = {
-    "waste_spawn_prob": "it is now 'pollution_rate'",
-    "spawn_prob_max": "it is now 'growth_rate'",
-    "depletion_threshold": "it is now 'pollution_cap'",
-    "restoration_threshold": "growth now falls linearly from 'growth_rate' on a clean river to zero at "
-                             "'pollution_cap'; leave it out",
-}
+#: said beside an unknown parameter: the first release's growth parameters were renamed during v0
+RENAMED_NOTE = "some cleanup_v0 parameters were renamed during v0; `marl-core envs` lists the current ones"
 
 
 class CleanupGame(GridGame):
@@ -122,7 +116,7 @@ class CleanupGame(GridGame):
 
     name: ClassVar[str] = NAME
     PARAMS: ClassVar[list[Param]] = PARAMS
-    RENAMED: ClassVar[dict[str, str]] = RENAMED
+    RENAMED_NOTE: ClassVar[str | None] = RENAMED_NOTE
     has_clean_beam: ClassVar[bool] = True
     info_keys: ClassVar[tuple[str, ...]] = GridGame.info_keys + ("waste_removed",)
 

@@ -181,17 +181,19 @@ class GridGame(BatchedGame):
     """
 
     PARAMS: ClassVar[list[Param]] = []
-    # parameters an earlier version took, each with what replaced it (refused with that text)
-    RENAMED: ClassVar[dict[str, str]] = {}
+    # said beside an unknown parameter when a game renamed some of its parameters (None: nothing)
+    RENAMED_NOTE: ClassVar[str | None] = None
     has_clean_beam: ClassVar[bool] = False
     info_keys: ClassVar[tuple[str, ...]] = ("resources_taken", "tags_fired", "times_tagged", "frozen")
 
     def __init__(self, num_envs: int = 1, **params: Any):
         self.num_envs = B = self.check_num_envs(self.name, num_envs)
-        for key in params:
-            if key in self.RENAMED:
-                raise ParamError(f"{self.name}: parameter '{key}' is no longer accepted: {self.RENAMED[key]}")
-        p = self.params = resolve(self.name, self.PARAMS, params)
+        try:
+            p = self.params = resolve(self.name, self.PARAMS, params)
+        except ParamError as err:
+            if self.RENAMED_NOTE and "unknown parameter" in str(err):
+                raise ParamError(f"{err}; {self.RENAMED_NOTE}") from None
+            raise
         self.layout: Layout = load_layout(p["layout"])
         self._check_layout(self.layout)
         H, W = self.layout.shape

@@ -269,14 +269,12 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
 
 
 def _param_name_problem(module: Any, key: str) -> str | None:
-    """``None`` when ``key`` is a parameter of the game ``module``, else the one-line error (a renamed
-    parameter names what replaced it; an unknown one the nearest valid names)."""
-    renamed = getattr(module, "RENAMED", {})
-    if key in renamed:
-        return f"env.params.{key} is no longer accepted: {renamed[key]}"
+    """``None`` when ``key`` is a parameter of the game ``module``, else the one-line error (the nearest
+    valid names; a game that renamed parameters adds its note)."""
     names = [p.name for p in module.PARAMS]
     if key not in names:
-        return _unknown(f"env.params.{key}", "env.params.", names)
+        note = getattr(module, "RENAMED_NOTE", None)
+        return _unknown(f"env.params.{key}", "env.params.", names) + (f" ({note})" if note else "")
     return None
 
 

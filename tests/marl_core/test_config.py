@@ -207,8 +207,9 @@ def test_matrix_payoffs_null_round_trips(tmp_path):
     ({"env": {"name": "pkg:mod:fn"}}, [], r"^env\.name = 'pkg:mod:fn' is not allowed: .*exactly one colon"),
     ({"env": {"name": "my-pkg:make"}}, [], r"^env\.name = 'my-pkg:make' is not allowed"),
     ({"env": {"name": "gymnasium:"}}, [], r"^env\.name = 'gymnasium:' is not allowed"),
-    ({"env": {"name": "cleanup_v0", "params": {"spawn_prob_max": 0.1}}}, [],
-     r"^env\.params\.spawn_prob_max is no longer accepted: it is now 'growth_rate'$"),
+    ({"env": {"name": "cleanup_v0", "params": {"river_speed": 0.1}}}, [],
+     r"^unknown key 'env\.params\.river_speed' .*\(some cleanup_v0 parameters were renamed during v0; "
+     r"`marl-core envs` lists the current ones\)$"),
     ({"env": {"params": {"regrow_tabel": [0.1]}}}, [],
      r"^unknown key 'env\.params\.regrow_tabel'; did you mean 'env\.params\.regrow_table'"),
     ({"env": {"params": {"num_agents": 0}}}, [],
@@ -365,8 +366,8 @@ def test_nearest_names_a_clear_winner_alone_and_close_ones_together():
     ({}, ["env.params.num_agent=3"],
      r"^--set env\.params\.num_agent=3: unknown key 'env\.params\.num_agent'; did you mean "
      r"'env\.params\.num_agents'\?$"),
-    ({"env": {"name": "cleanup_v0"}}, ["env.params.waste_spawn_prob=0.1"],
-     r"^--set env\.params\.waste_spawn_prob=0\.1: env\.params\.waste_spawn_prob is no longer accepted"),
+    ({"env": {"name": "cleanup_v0"}}, ["env.params.river_speed=0.1"],
+     r"^--set env\.params\.river_speed=0\.1: unknown key 'env\.params\.river_speed'"),
     # the game is the one named after every override, wherever --set env.name comes
     ({}, ["env.params.pollution_rate=0.1", "env.name=matrix_v0"],
      r"^--set env\.params\.pollution_rate=0\.1: unknown key 'env\.params\.pollution_rate'"),
