@@ -209,7 +209,8 @@ def _social(result: dict) -> tuple[str, ...]:
 
 def _table(summary: dict) -> str:
     """The learned team beside every baseline team (columns), one row per metric; a team of one agent
-    gets its return only (and a note why)."""
+    gets its return only (and a note why). A mixed team (seats) has, under the return, one row per group:
+    the mean return of its agents, and of the same agents in each baseline team."""
     from marl_core.baselines import KNOWN
 
     teams = summary.get("baselines") or {"random": summary.get("random") or {}}
@@ -223,6 +224,16 @@ def _table(summary: dict) -> str:
     for label, key in rows:
         lines.append(f"{label:<16}{_fmt(summary.get(key)):>{width}}"
                      + "".join(f"{_fmt(teams[n].get(key)):>{width}}" for n in teams))
+        if key == "return_mean" and isinstance(summary.get("groups"), dict):  # a mixed team: each group's
+            for group, info in summary["groups"].items():  # mean return, beside the teams' same agents
+                agents = info.get("agents") or []
+
+                def of(result: dict, agents=agents) -> float | None:
+                    r = result.get("returns") or {}
+                    vals = [r[a] for a in agents if a in r]
+                    return sum(vals) / len(vals) if vals else None
+                lines.append(f"{'  ' + group[:14]:<16}{_fmt(of(summary)):>{width}}"
+                             + "".join(f"{_fmt(of(teams[n])):>{width}}" for n in teams))
     if "closed_form" in summary:  # lola: the matrix game's mean reward per round, per agent
         def per_round(res: dict) -> float | None:
             r = res.get("reward_per_round")

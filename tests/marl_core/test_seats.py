@@ -53,6 +53,12 @@ def test_the_bundled_mixed_config_trains(tmp_path):
                                                                                    summary["returns"]["agent_2"]]))}
     for a in ("agent_0", "agent_1", "agent_2"):
         assert load_policy(tmp_path / "run" / "policies" / f"{a}.pt").agent == a
+    # the final table shows each group's return under the team's (cli.py _table)
+    from marl_core.cli import _fmt, _table
+
+    rows = {line.split()[0]: line.split() for line in _table(summary).splitlines()[1:]}
+    assert rows["agent_0"][1] == _fmt(summary["returns"]["agent_0"])
+    assert rows["learner"][1] == _fmt(summary["groups"]["learner"]["return_mean"])
 
 
 def _fake_batch(spec: TeamSpec, K: int = 8, gamma: float = 0.99, seed: int = 0) -> dict[str, np.ndarray]:
