@@ -147,8 +147,18 @@ def _envs(args: argparse.Namespace) -> int:
     widths = _widths([r for game_rows in rows.values() for r in game_rows],
                      shutil.get_terminal_size((100, 24)).columns, indent=2)
     for game, game_rows in rows.items():
-        print(game)
-        print(_columns(game_rows, widths, indent=2))
+        print(f"{game}  (metrics: {', '.join(envs.declared_metrics(game)) or 'returns only'})")
+        print(_columns([("parameter", "type", "default", "meaning"), *game_rows], widths, indent=2))
+    from envs.layouts import bundled_layouts
+    from envs.matrix_v0 import GAME_CHOICES
+
+    width = max(40, shutil.get_terminal_size((100, 24)).columns)
+    for text in (f"bundled layouts (env.params.layout): {', '.join(bundled_layouts())}",
+                 f"matrix games (matrix_v0's game): {', '.join(GAME_CHOICES)}",
+                 "other envs (env.name): 'module:callable' for a PettingZoo ParallelEnv factory (e.g. "
+                 "mpe2.simple_spread_v3:parallel_env), 'gymnasium:ID' for a single-agent gymnasium env (e.g. "
+                 "gymnasium:CartPole-v1); they are reported by their returns"):
+        print(textwrap.fill(text, width=width, break_on_hyphens=False))
     return 0
 
 

@@ -133,3 +133,15 @@ def test_small_cli_courtesies(tmp_path, capsys):
     (tmp_path / "empty").mkdir()
     assert main(["evaluate", str(tmp_path / "empty")]) == 2
     assert "is not a run directory (no config.yaml)" in capsys.readouterr().err
+
+
+def test_envs_lists_games_with_a_header_layouts_matrix_games_and_other_envs(capsys, monkeypatch):
+    from envs.layouts import bundled_layouts
+    from envs.matrix_v0 import GAME_CHOICES
+
+    out = " ".join(_envs_table(capsys, monkeypatch, 100).split())
+    assert "harvest_v0 (metrics: efficiency, equality, sustainability, peace)" in out
+    assert "matrix_v0 (metrics: efficiency)" in out
+    assert "parameter type default meaning" in out
+    assert all(name in out for name in bundled_layouts()) and all(g in out for g in GAME_CHOICES)
+    assert "'module:callable'" in out and "'gymnasium:ID'" in out
