@@ -535,7 +535,15 @@ def _report(args: argparse.Namespace) -> int:
 def _crossplay(args: argparse.Namespace) -> int:
     from marl_core.crossplay import crossplay
 
-    res = crossplay(args.run_dirs, args.out, episodes=args.episodes, members=args.members)
+    seen: dict[str, int] = {"n": 0}
+
+    def progress(focal: str, others: str, seat: int | None) -> None:
+        seen["n"] += 1
+        if seen["n"] % 10 == 1:  # a line every 10 seatings played
+            where = "self-play" if seat is None else f"focal seat {seat}"
+            print(f"playing {focal} with {others} ({where}); {seen['n']} seatings so far", flush=True)
+
+    res = crossplay(args.run_dirs, args.out, episodes=args.episodes, members=args.members, progress=progress)
     labels = [s["label"] for s in res["sources"]]
     cells = {(c["focal"], c["others"]): c for c in res["cells"]}
     width = max(12, *(len(lab) + 2 for lab in labels))
@@ -547,6 +555,10 @@ def _crossplay(args: argparse.Namespace) -> int:
     gap = res["gap"].get("efficiency")
     if gap is not None:
         print(f"cross-play gap (self-play minus cross-play, learned sources): efficiency {_fmt(gap)}")
+    norm = res["gap_normalised"]["mean"].get("efficiency")
+    if norm is not None:
+        print(f"normalised by each pair's own self-play, 1 - cross / mean(self): efficiency {_fmt(norm)} "
+              "(compatibility; a weak source lowers its self-play too)")
     print(f"table: {args.out}/crossplay.csv   heatmaps: {args.out}/heatmap_*.png")
     return 0
 

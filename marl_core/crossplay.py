@@ -14,8 +14,11 @@ seating: agent_0 from run A with agent_1 from run B, and the reverse.
 
 Each seating is played on the same episodes and seeds. For a cell with two or more pairs of runs (seeds) the
 interval is Student t over the pairs' means ("seeds"); otherwise over the episodes ("episodes"); the CSV says
-which. The cross-play gap of a metric is the mean of the self-play cells minus the mean of the cross-play
-cells, both over learned sources only.
+which; intervals are clipped to a measure's range (equality at most 1, peace in [0, N], sustainability in
+[1, episode length]). The cross-play gap of a metric is the mean of the self-play cells minus the mean of
+the cross-play cells, both over learned sources only. Since one weak source lowers every cell it plays
+in, ``gap_normalised`` also sets each cross cell beside its two sources' self-play and gives
+1 - cross / mean(self X, self Y): compatibility measured against what each source does with its own.
 
 Output (written only once everything has been played): ``crossplay.csv`` (one row per cell and per focal seat),
 ``crossplay.json`` (the cells, the gap, the sources and the game) and ``heatmap_<metric>.png`` for each
@@ -177,14 +180,16 @@ def crossplay(items: list[str], out: str | Path, episodes: int = 32, members: li
         for s in sources:
             s.policies = [_load_policies(r, spec.agents, tuple(spec.obs_space.shape), spec.num_actions)
                           for r in s.runs]
-        cells, rows = _play_all(env, sources, episodes, progress)
+        bounds = _bounds(name, params, spec.num_agents)
+        cells, rows = _play_all(env, sources, episodes, progress, bounds)
     finally:
         env.close()
     gap = _gap(cells, sources)
+    normalised = _normalised(cells, sources)
     result = {"game": {"name": name, "params": params}, "episodes": episodes, "agents": list(spec.agents),
               "sources": [{"label": s.label, "runs": [str(r) for r in s.runs], "member": s.member}
                           for s in sources],
-              "cells": cells, "gap": gap}
+              "cells": cells, "gap": gap, "gap_normalised": normalised}
     figures = _heatmaps(cells, sources)
     out.mkdir(parents=True, exist_ok=True)
     atomic_write(out / "crossplay.csv", lambda f: f.write(_csv(rows)))
@@ -194,7 +199,24 @@ def crossplay(items: list[str], out: str | Path, episodes: int = 32, members: li
     return result
 
 
-def _play_all(env, sources: list[Source], episodes: int, progress):
+def _bounds(name: str, params: dict[str, Any], n: int) -> dict[str, tuple[float, float]]:
+    """The range each cell measure cannot leave (envs/metrics.py), to clip its interval to."""
+    from envs import game_module
+    from envs.params import resolve
+
+    out = {m: (-np.inf, np.inf) for m in CELL_MEASURES}
+    out["equality"] = (-np.inf, 1.0)
+    out["peace"] = (0.0, float(n))
+    try:
+        length = resolve(name, game_module(name).PARAMS, params).get("max_cycles")
+    except Exception:  # noqa: BLE001 - a game we did not write: no known episode length
+        length = None
+    if isinstance(length, int):
+        out["sustainability"] = (1.0, float(length))
+    return out
+
+
+def _play_all(env, sources: list[Source], episodes: int, progress, bounds=None):
     n = env.spec.num_agents
     cells: list[dict[str, Any]] = []
     rows: list[dict[str, Any]] = []
@@ -223,9 +245,9 @@ def _play_all(env, sources: list[Source], episodes: int, progress):
                     if progress is not None:
                         progress(x.label, y.label, seat)
                 rows.append(_row(x, y, "all" if seat is None else env.spec.agents[seat], seat_episode,
-                                 None, len(pairs)))
+                                 None, len(pairs), bounds))
             over = "seeds" if len(pairs) >= 2 else "episodes"
-            cell = _row(x, y, "all", per_episode, per_pair if over == "seeds" else None, len(pairs))
+            cell = _row(x, y, "all", per_episode, per_pair if over == "seeds" else None, len(pairs), bounds)
             cells.append(cell)
             if len(focal_seats) > 1:
                 rows.append({**cell, "focal_seat": "all"})
@@ -248,7 +270,8 @@ def _episode_values(per_episode: list[dict[str, Any]], seat: int | None, n: int)
 
 
 def _row(x: Source, y: Source, seat: str, per_episode: dict[str, list[float]],
-         per_pair: dict[str, list[float]] | None, pairs: int) -> dict[str, Any]:
+         per_pair: dict[str, list[float]] | None, pairs: int,
+         bounds: dict[str, tuple[float, float]] | None = None) -> dict[str, Any]:
     row: dict[str, Any] = {"focal": x.label, "others": y.label, "focal_seat": seat, "run_pairs": pairs,
                            "episodes": len(per_episode["efficiency"]),
                            "interval_over": "seeds" if per_pair is not None else "episodes"}
@@ -256,7 +279,8 @@ def _row(x: Source, y: Source, seat: str, per_episode: dict[str, list[float]],
         v = np.asarray(per_episode[m], np.float64)
         row[m] = float(np.nanmean(v)) if np.isfinite(v).any() else float("nan")
         low, high = _interval(per_pair[m] if per_pair is not None else per_episode[m])
-        row[f"{m}_low"], row[f"{m}_high"] = low, high
+        lo_b, hi_b = (bounds or {}).get(m, (-np.inf, np.inf))  # clipped to the measure's range
+        row[f"{m}_low"], row[f"{m}_high"] = float(np.clip(low, lo_b, hi_b)), float(np.clip(high, lo_b, hi_b))
     return row
 
 
@@ -270,6 +294,33 @@ def _gap(cells: list[dict[str, Any]], sources: list[Source]) -> dict[str, float 
         ok = [v for v in self_v if np.isfinite(v)], [v for v in cross if np.isfinite(v)]
         gap[m] = float(np.mean(ok[0]) - np.mean(ok[1])) if ok[0] and ok[1] else None
     return gap
+
+
+def _normalised(cells: list[dict[str, Any]], sources: list[Source]) -> dict[str, Any]:
+    """Skill apart from compatibility: each cross-play cell (X, Y) of learned sources beside X's and Y's
+    self-play, and its gap normalised by them, 1 - cross / mean(self X, self Y), for measures whose
+    self-play values are positive (0: they play together as well as each with its own; 0.5: half of it is
+    lost). A weaker source lowers its own self-play too, so the normalised gap is not a skill gap.
+    Returns ``{"cells": [{focal, others, measure, cross, self_focal, self_others, normalised}], "mean":
+    {measure: mean normalised gap over the cells}}``."""
+    learned = {s.label for s in sources if s.member is None}
+    own = {c["focal"]: c for c in cells if c["focal"] == c["others"]}
+    rows: list[dict[str, Any]] = []
+    for c in cells:
+        x, y = c["focal"], c["others"]
+        if x == y or x not in learned or y not in learned:
+            continue
+        for m in CELL_MEASURES:
+            sx, sy = own[x][m], own[y][m]
+            ref = (sx + sy) / 2
+            value = float(1 - c[m] / ref) if np.isfinite(ref) and ref > 0 and np.isfinite(c[m]) else None
+            rows.append({"focal": x, "others": y, "measure": m, "cross": c[m], "self_focal": sx,
+                         "self_others": sy, "normalised": value})
+    mean = {}
+    for m in CELL_MEASURES:
+        vals = [r["normalised"] for r in rows if r["measure"] == m and r["normalised"] is not None]
+        mean[m] = float(np.mean(vals)) if vals else None
+    return {"cells": rows, "mean": mean}
 
 
 def _csv(rows: list[dict[str, Any]]) -> str:

@@ -108,6 +108,7 @@ def test_cli_prints_the_table_and_the_gap(two_runs, tmp_path, capsys):
     assert main(["crossplay", str(a), str(b), "--out", str(tmp_path / "cp"), "--episodes", "4"]) == 0
     out = capsys.readouterr().out
     assert "cross-play of lola, naive on matrix_v0" in out and "cross-play gap" in out
+    assert out.startswith("playing lola with lola (self-play); 1 seatings so far")  # progress as it plays
 
 
 def _tiny_harvest(tmp: Path, name: str, radius: int) -> Path:
@@ -129,6 +130,18 @@ def test_grid_runs_cross_play_with_a_scripted_member(tmp_path):
     assert len(res["cells"]) == 9
     greedy = next(x for x in res["cells"] if (x["focal"], x["others"]) == ("greedy", "greedy"))
     assert greedy["efficiency"] > 0  # the scripted team harvests
+    # every interval stays in its measure's range (envs/metrics.py): peace in [0, N], equality at most 1
+    for c in res["cells"]:
+        assert 0.0 <= c["peace_low"] <= c["peace_high"] <= 2.0 and c["equality_high"] <= 1.0
+    # each cross cell of learned sources beside their self-play, and the gap normalised by it
+    cells = {(c["focal"], c["others"]): c for c in res["cells"]}
+    norm = {(r["focal"], r["others"], r["measure"]): r for r in res["gap_normalised"]["cells"]}
+    assert {(f, o) for f, o, _ in norm} == {("a", "b"), ("b", "a")}  # the member takes no part
+    for m in ("focal_return", "efficiency"):
+        r = norm["a", "b", m]
+        ref = (cells["a", "a"][m] + cells["b", "b"][m]) / 2
+        assert (r["self_focal"], r["self_others"]) == (cells["a", "a"][m], cells["b", "b"][m])
+        assert r["normalised"] == (pytest.approx(1 - cells["a", "b"][m] / ref) if ref > 0 else None)
 
 
 @pytest.mark.parametrize("case, message", [
