@@ -107,6 +107,9 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--with", dest="members", action="append", default=[], metavar="NAME",
                    help="a non-learning member as a source: random, noop or a scripted team of the game "
                    "(repeatable)")
+    c.add_argument("--by", choices=("pool", "seat"), default="pool",
+                   help="pool: one heatmap per measure, the focal seats pooled (default); seat: also one per "
+                   "focal seat")
     e = sub.add_parser("envs", help="list the games and their parameters")
     e.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return p
@@ -543,7 +546,8 @@ def _crossplay(args: argparse.Namespace) -> int:
             where = "self-play" if seat is None else f"focal seat {seat}"
             print(f"playing {focal} with {others} ({where}); {seen['n']} seatings so far", flush=True)
 
-    res = crossplay(args.run_dirs, args.out, episodes=args.episodes, members=args.members, progress=progress)
+    res = crossplay(args.run_dirs, args.out, episodes=args.episodes, members=args.members, progress=progress,
+                    by=args.by)
     labels = [s["label"] for s in res["sources"]]
     cells = {(c["focal"], c["others"]): c for c in res["cells"]}
     width = max(12, *(len(lab) + 2 for lab in labels))

@@ -149,10 +149,17 @@ def _interval(values: list[float]) -> tuple[float, float]:
     return t_interval(finite_v)
 
 
+BY = ("pool", "seat")
+
+
 def crossplay(items: list[str], out: str | Path, episodes: int = 32, members: list[str] | None = None,
-              progress=None) -> dict[str, Any]:
-    """Play every seating (module docstring) and write the results into the new directory ``out``."""
+              progress=None, by: str = "pool") -> dict[str, Any]:
+    """Play every seating (module docstring) and write the results into the new directory ``out``.
+    ``by="seat"`` also draws one heatmap per focal seat (``heatmap_<measure>_<agent>.png``: each
+    cross-play cell with the focal source in that seat only; the diagonal is self-play)."""
     out = Path(out)
+    if by not in BY:
+        raise RunDirError(f"crossplay: --by = {by!r} is not allowed; expected one of {', '.join(BY)}")
     members = list(members or [])
     if out.exists() and (not out.is_dir() or any(out.iterdir())):
         raise RunDirError(f"crossplay: --out '{out}' already exists and is not empty; choose a new directory")
@@ -191,6 +198,12 @@ def crossplay(items: list[str], out: str | Path, episodes: int = 32, members: li
                           for s in sources],
               "cells": cells, "gap": gap, "gap_normalised": normalised}
     figures = _heatmaps(cells, sources)
+    if by == "seat":
+        diagonal = [c for c in cells if c["focal"] == c["others"]]
+        for agent in spec.agents:
+            seated = [r for r in rows if r["focal_seat"] == agent and r["focal"] != r["others"]]
+            for m, png in _heatmaps(diagonal + seated, sources, f" (focal seat {agent})").items():
+                figures[f"{m}_{agent}"] = png
     out.mkdir(parents=True, exist_ok=True)
     atomic_write(out / "crossplay.csv", lambda f: f.write(_csv(rows)))
     atomic_write(out / "crossplay.json", lambda f: f.write(json.dumps(finite(result), indent=2, sort_keys=True)))
@@ -333,7 +346,7 @@ def _csv(rows: list[dict[str, Any]]) -> str:
     return buf.getvalue()
 
 
-def _heatmaps(cells: list[dict[str, Any]], sources: list[Source]) -> dict[str, bytes]:
+def _heatmaps(cells: list[dict[str, Any]], sources: list[Source], where: str = "") -> dict[str, bytes]:
     import matplotlib
 
     matplotlib.use("Agg")
@@ -358,7 +371,7 @@ def _heatmaps(cells: list[dict[str, Any]], sources: list[Source]) -> dict[str, b
         ax.set_yticks(range(k), labels)
         ax.set_xlabel("others (every other seat)")
         ax.set_ylabel("focal (one seat)")
-        ax.set_title(f"cross-play: {m} (95% interval)")
+        ax.set_title(f"cross-play: {m}{where} (95% interval)")
         lo_v, hi_v = (np.nanmin(grid), np.nanmax(grid)) if np.isfinite(grid).any() else (0.0, 1.0)
         for i in range(k):
             for j in range(k):

@@ -105,7 +105,10 @@ def test_a_memory_one_player_reads_the_other_seat_with_the_blocks_swapped():
 
 def test_cli_prints_the_table_and_the_gap(two_runs, tmp_path, capsys):
     a, b = two_runs
-    assert main(["crossplay", str(a), str(b), "--out", str(tmp_path / "cp"), "--episodes", "4"]) == 0
+    assert main(["crossplay", str(a), str(b), "--out", str(tmp_path / "cp"), "--episodes", "4", "--by",
+                 "seat"]) == 0
+    drawn = {p.name for p in (tmp_path / "cp").glob("heatmap_*.png")}
+    assert {"heatmap_efficiency.png", "heatmap_efficiency_agent_0.png", "heatmap_efficiency_agent_1.png"} <= drawn
     out = capsys.readouterr().out
     assert "cross-play of lola, naive on matrix_v0" in out and "cross-play gap" in out
     assert out.startswith("playing lola with lola (self-play); 1 seatings so far")  # progress as it plays
