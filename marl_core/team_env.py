@@ -310,7 +310,7 @@ class ParallelTeamEnv(_CopyLoopTeamEnv):
     """``num_envs`` PettingZoo ``ParallelEnv`` instances from one factory, stepped in a Python loop.
 
     The env must give every agent the same ``Discrete`` action space and a ``Box`` observation space of one
-    shape and dtype, and keep every agent until the episode ends (all agents terminated or truncated, or
+    shape and dtype (``Discrete`` and ``MultiDiscrete`` observations are one-hot encoded into a uint8 ``Box``), and keep every agent until the episode ends (all agents terminated or truncated, or
     ``env.agents`` empty). The state comes from ``env.state()`` when the env has a ``state_space`` Box and
     ``state()`` works; otherwise it is None. Only the first instance renders (``render_mode="rgb_array"``).
     """
@@ -322,7 +322,7 @@ class ParallelTeamEnv(_CopyLoopTeamEnv):
         self.envs: list[Any] = []
         self.envs.append(self._build(name, factory, params, self._render))
         try:
-            spec, self._start = _parallel_spec(name, self.envs[0], params)
+            spec, self._start, self._encode = _parallel_spec(name, self.envs[0], params)
             for _ in range(1, num_envs):
                 self.envs.append(self._build(name, factory, params, False))
         except BaseException:
@@ -344,7 +344,8 @@ class ParallelTeamEnv(_CopyLoopTeamEnv):
         missing = [a for a in agents if a not in obs]
         if missing:
             raise EnvAdapterError(f"{self.name}: no observation for {missing[0]} (copy {b}); {STAY_MESSAGE}")
-        out = np.stack([np.asarray(obs[a]) for a in agents]).astype(self.spec.obs_dtype, copy=False)
+        encode = self._encode or np.asarray
+        out = np.stack([encode(obs[a]) for a in agents]).astype(self.spec.obs_dtype, copy=False)
         if out.shape[1:] != self.spec.obs_shape:
             raise EnvAdapterError(f"{self.name}: observation of shape {out.shape[1:]} (copy {b}) does not fit the "
                                   f"observation space of shape {self.spec.obs_shape}")
@@ -450,6 +451,41 @@ def _discrete_size(name: str, space_of: Mapping[str, Any], params: Mapping[str, 
     return int(first[1].n), int(first[1].start)
 
 
+def _one_hot_encoder(name: str, space_of: Mapping[str, Any]) -> tuple[spaces.Box, Callable[[Any], np.ndarray]] | None:
+    """For ``Discrete`` or ``MultiDiscrete`` observations (the same space for every agent): the one-hot
+    ``Box(0, 1, (size,), uint8)`` they become and the function that encodes one observation (a
+    MultiDiscrete one is the concatenation of one one-hot block per entry). None for any other space."""
+    spaces_ = list(space_of.values())
+    first = spaces_[0]
+    if isinstance(first, spaces.Discrete):
+        if any(not isinstance(s, spaces.Discrete) or (s.n, s.start) != (first.n, first.start) for s in spaces_):
+            raise EnvAdapterError(f"{name}: the agents' Discrete observation spaces differ; the trainer needs one "
+                                  "space for every agent")
+        n, start = int(first.n), int(first.start)
+
+        def encode(obs: Any) -> np.ndarray:
+            out = np.zeros(n, np.uint8)
+            out[int(np.asarray(obs)) - start] = 1
+            return out
+        return spaces.Box(0, 1, (n,), np.uint8), encode
+    if isinstance(first, spaces.MultiDiscrete):
+        nvec = np.asarray(first.nvec).ravel()
+        if any(not isinstance(s, spaces.MultiDiscrete) or not np.array_equal(np.asarray(s.nvec).ravel(), nvec)
+               for s in spaces_):
+            raise EnvAdapterError(f"{name}: the agents' MultiDiscrete observation spaces differ; the trainer needs "
+                                  "one space for every agent")
+        offsets = np.concatenate([[0], np.cumsum(nvec)[:-1]]).astype(np.int64)
+        lows = np.asarray(getattr(first, "start", np.zeros_like(nvec))).ravel().astype(np.int64)
+        size = int(nvec.sum())
+
+        def encode(obs: Any) -> np.ndarray:
+            out = np.zeros(size, np.uint8)
+            out[offsets + np.asarray(obs).ravel().astype(np.int64) - lows] = 1
+            return out
+        return spaces.Box(0, 1, (size,), np.uint8), encode
+    return None
+
+
 def _shared_box(name: str, space_of: Mapping[str, Any]) -> spaces.Box:
     """The one observation ``Box`` shape and dtype every agent shares (bounds: the union), or an error."""
     first = None
@@ -470,12 +506,18 @@ def _shared_box(name: str, space_of: Mapping[str, Any]) -> spaces.Box:
     return spaces.Box(np.minimum.reduce(lows), np.maximum.reduce(highs), box.shape, box.dtype)
 
 
-def _parallel_spec(name: str, env: Any, params: Mapping[str, Any]) -> tuple[TeamSpec, int]:
+def _parallel_spec(name: str, env: Any, params: Mapping[str, Any]
+                   ) -> tuple[TeamSpec, int, Callable[[Any], np.ndarray] | None]:
     from pettingzoo import AECEnv
 
     if isinstance(env, AECEnv):
-        raise EnvAdapterError(f"{name}: the factory returned an AEC env; give the ParallelEnv factory "
-                              f"(e.g. 'module:parallel_env')")
+        module = importlib.import_module(name.partition(":")[0]) if ":" in name else None
+        if module is not None and hasattr(module, "parallel_env"):
+            raise EnvAdapterError(f"{name}: the factory returned an AEC env; this game also has a ParallelEnv "
+                                  f"factory: use '{name.partition(':')[0]}:parallel_env'")
+        raise EnvAdapterError(f"{name}: a turn-based (AEC) game with no ParallelEnv factory; the trainer steps "
+                              "every agent at once and supports PettingZoo ParallelEnv games only (e.g. "
+                              "'mpe2.simple_spread_v3:parallel_env', 'pettingzoo.classic.rps_v2:parallel_env')")
     for attr in ("possible_agents", "reset", "step", "action_space", "observation_space"):
         if not hasattr(env, attr):
             raise EnvAdapterError(f"{name}: the factory returned {type(env).__name__}, which has no "
@@ -484,7 +526,9 @@ def _parallel_spec(name: str, env: Any, params: Mapping[str, Any]) -> tuple[Team
     if not agents:
         raise EnvAdapterError(f"{name}: the env has no agents")
     num_actions, start = _discrete_size(name, {a: env.action_space(a) for a in agents}, params)
-    obs_space = _shared_box(name, {a: env.observation_space(a) for a in agents})
+    observed = {a: env.observation_space(a) for a in agents}
+    one_hot = _one_hot_encoder(name, observed)
+    obs_space, encode = one_hot if one_hot is not None else (_shared_box(name, observed), None)
     state_space = None
     candidate = getattr(env, "state_space", None)
     if isinstance(candidate, spaces.Box):
@@ -496,7 +540,7 @@ def _parallel_spec(name: str, env: Any, params: Mapping[str, Any]) -> tuple[Team
         if state is not None and state.shape == candidate.shape:
             state_space = candidate
     spec = TeamSpec(agents=agents, obs_space=obs_space, num_actions=num_actions, state_space=state_space)
-    return spec, start
+    return spec, start, encode
 
 
 def _gym_spec(name: str, env: Any) -> tuple[TeamSpec, int]:

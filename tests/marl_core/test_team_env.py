@@ -296,3 +296,46 @@ def test_random_actions_cover_the_action_space():
     a = random_actions(spec, 64, np.random.default_rng(0))
     assert a.shape == (64, 2) and a.dtype == np.int64
     assert set(np.unique(a)) == {0, 1, 2, 3}
+
+
+# --------------------------------------------------------------- Discrete observations and AEC games
+RPS = "pettingzoo.classic.rps_v2:parallel_env"  # PettingZoo's own rock-paper-scissors, Discrete(4) observations
+
+
+def test_discrete_observations_are_one_hot_encoded():
+    from pettingzoo.classic import rps_v2
+
+    env = make_team_env(RPS, {}, 2, 0, with_state=False)
+    try:
+        assert env.spec.obs_shape == (4,) and env.spec.obs_dtype == np.uint8
+        obs = env.reset()[0]
+        raw = rps_v2.parallel_env().reset(seed=0)[0]  # the game's own first observation: 3 for every player
+        assert obs.shape == (2, 2, 4) and (obs.sum(-1) == 1).all()
+        assert (obs.argmax(-1) == np.array([[int(raw[a]) for a in ("player_0", "player_1")]] * 2)).all()
+    finally:
+        env.close()
+
+
+def test_a_team_trains_on_rock_paper_scissors(tmp_path):
+    from marl_core import train
+    from marl_core.config import parse_config
+
+    cfg = parse_config({"env": {"name": RPS, "num_envs": 2, "params": {"max_cycles": 20}},
+                        "learner": {"kind": "idqn", "hidden": 16, "batch_size": 8, "warmup_steps": 20,
+                                    "replay_size": 500},
+                        "train": {"total_steps": 80, "eval_every": 80, "eval_episodes": 2, "checkpoint_every": 80},
+                        "log": {"tensorboard": False, "gif_every": 0, "progress": False}})
+    summary = train.run(cfg, tmp_path / "rps")
+    assert summary["env_steps"] == 80 and summary["metrics"] == []  # a game we did not write: returns only
+
+
+@pytest.mark.parametrize("name, message", [
+    ("pettingzoo.classic.rps_v2:env", r"the factory returned an AEC env; this game also has a ParallelEnv "
+                                      r"factory: use 'pettingzoo\.classic\.rps_v2:parallel_env'$"),
+    ("pettingzoo.classic.tictactoe_v3:env", r"a turn-based \(AEC\) game with no ParallelEnv factory; the trainer "
+                                            r"steps every agent at once"),
+])
+def test_turn_based_games_are_refused_in_one_line_with_what_works(name, message):
+    with pytest.raises(EnvAdapterError, match=message) as info:
+        make_team_env(name, {}, 1, 0, with_state=False)
+    assert "\n" not in str(info.value)
