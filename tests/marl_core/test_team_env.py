@@ -339,3 +339,22 @@ def test_turn_based_games_are_refused_in_one_line_with_what_works(name, message)
     with pytest.raises(EnvAdapterError, match=message) as info:
         make_team_env(name, {}, 1, 0, with_state=False)
     assert "\n" not in str(info.value)
+
+
+class _Coded(_Toy):
+    """_Toy with MultiDiscrete([3, 2]) observations: agent i sees [i + 1, 1]."""
+
+    def __init__(self):
+        super().__init__()
+        self._obs = {a: spaces.MultiDiscrete([3, 2]) for a in self.possible_agents}
+
+    def _o(self):
+        return {a: np.array([i + 1, 1]) for i, a in enumerate(self.agents)}
+
+
+def test_multidiscrete_observations_are_one_hot_blocks():
+    env = ParallelTeamEnv("coded", _Coded, {}, num_envs=1, seed=0)
+    assert env.spec.obs_shape == (5,)  # 3 + 2
+    obs = env.reset()[0][0]
+    # agent_0: [1, 1] -> block one [0, 1, 0], block two [0, 1]; agent_1: [2, 1] -> [0, 0, 1], [0, 1]
+    assert obs.tolist() == [[0, 1, 0, 0, 1], [0, 0, 1, 0, 1]]
