@@ -110,6 +110,15 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--by", choices=("pool", "seat"), default="pool",
                    help="pool: one heatmap per measure, the focal seats pooled (default); seat: also one per "
                    "focal seat")
+    cp = sub.add_parser("compare", help="compare plain run directories: curves, intervals over seeds, baselines")
+    cp.add_argument("run_dirs", nargs="+", metavar="RUN_DIR", help="run directories written by train "
+                    "(LABEL=RUN_DIR gives runs one label: seeds of one condition)")
+    cp.add_argument("--out", required=True, metavar="DIR", help="new directory for summary.md, report.md, "
+                    "runs.csv and figures/")
+    cp.add_argument("--baseline", metavar="LABEL", help="the condition the others are compared with "
+                    "(default: the first)")
+    cp.add_argument("--test", default="mannwhitney", choices=("mannwhitney", "welch"),
+                    help="the test against the baseline: mannwhitney (default) or welch")
     e = sub.add_parser("envs", help="list the games and their parameters")
     e.add_argument("--json", action="store_true", help="print JSON instead of a table")
     return p
@@ -535,6 +544,15 @@ def _report(args: argparse.Namespace) -> int:
     return 0
 
 
+def _compare(args: argparse.Namespace) -> int:
+    from marl_core.compare import compare, short_table
+
+    summary = compare(args.run_dirs, args.out, baseline=args.baseline, test=args.test)
+    print(short_table(summary), end="")
+    print(f"report: {args.out}/report.md   table: {args.out}/summary.md   figures: {args.out}/figures/")
+    return 0
+
+
 def _crossplay(args: argparse.Namespace) -> int:
     from marl_core.crossplay import crossplay
 
@@ -582,7 +600,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         _check_set_pairs(list(sys.argv[1:] if argv is None else argv))
         args = _parser().parse_args(argv)
         return {"demo": _demo, "envs": _envs, "train": _train, "evaluate": _evaluate, "ablate": _ablate,
-                "status": _status, "report": _report, "crossplay": _crossplay}[args.command](args)
+                "status": _status, "report": _report, "crossplay": _crossplay,
+                "compare": _compare}[args.command](args)
     except (UsageError, EnvError, MarlError) as err:
         print(f"marl-core: error: {err}", file=sys.stderr)
         return 2

@@ -70,7 +70,7 @@ from marl_core.errors import ConfigError, MissingExtraError, RunDirError
 from marl_core.files import atomic_write, write_json
 from marl_core.hints import command
 
-__all__ = ["write_report", "report_summary", "is_smoke_test", "METRICS", "BEHAVIOUR", "HOLM_FAMILIES", "FEW_SEEDS",
+__all__ = ["write_report", "write_summary", "summarize_runs", "report_summary", "is_smoke_test", "METRICS", "BEHAVIOUR", "HOLM_FAMILIES", "FEW_SEEDS",
            "CONFIDENCE"]
 
 #: The metrics of the tables and figures, in display order; every one is higher-is-better.
@@ -690,6 +690,10 @@ def _summarize(data: dict[str, Any], test: str, reps: int, seed: int | None,
     over_training = (_over_training(arms, done, [m for m in OVER_TRAINING if m in measures])
                      if spec.get("over_training") is True else {})
     differences = _config_differences(arms, done, baseline, data.get("sources"))
+    if data.get("plain"):  # plain runs (marl-core compare): no spec asked for anything; a difference is one
+        for rows in differences.values():
+            for row in rows:
+                row["why"] = "differs"
     for a, rows in differences.items():
         inherited = [r["key"] for r in rows if r["why"] == "inherited"]
         if inherited:
@@ -1120,12 +1124,12 @@ def _markdown(summary: dict[str, Any], figures: dict[str, list[str]], drawn: boo
     clipped = {f"`{_md(a)}` {m}" for a in arms for m, e in info[a]["metrics"].items() if e.get("clipped")}
     L: list[str] = []
     add = L.append
-    add("# Sweep report\n")
+    add(f"# {summary.get('title', 'Sweep report')}\n")
     if summary["smoke_test"]:
         add("> **Smoke test.** This sweep's spec says `smoke_test: true`: its runs are too short to learn, so "
             "this report shows that training, the ledger and the report work end to end. Its numbers say "
             "nothing about the arms; do not read them as results.\n")
-    add(f"- **Sweep directory:** `{summary['sweep_dir']}`")
+    add(f"- **{summary.get('directory_label', 'Sweep directory')}:** `{summary['sweep_dir']}`")
     if summary["games"] or summary["learners"]:
         add(f"- **Game(s):** {', '.join(summary['games']) or 'n/a'}; **learner(s):** "
             f"{', '.join(summary['learners']) or 'n/a'}")
@@ -1533,7 +1537,39 @@ def write_report(sweep_dir: str | os.PathLike, test: str = "mannwhitney", reps: 
         MissingExtraError: matplotlib is not installed (and ``figures`` is true).
     """
     summary = report_summary(sweep_dir, test=test, reps=reps, seed=seed, holm_family=holm_family)
-    out = Path(sweep_dir) / "report"
+    return write_summary(summary, Path(sweep_dir) / "report", figures)
+
+
+def summarize_runs(label_dirs: list[tuple[str, Path]], directory: str, baseline: str | None = None,
+                   test: str = "mannwhitney") -> dict[str, Any]:
+    """The report's summary of plain run directories (no sweep): ``label_dirs`` pairs a label with a run
+    directory; runs under one label are its seeds, and the labels play the arms (the first is the baseline
+    unless ``baseline`` names another). Same statistics as a sweep's report."""
+    _check_args(test, 2000, 0, "metric")
+    rows = []
+    for label, run in label_dirs:
+        summary = run / "summary.json"
+        cfg = run / "config.yaml"
+        seed = None
+        if cfg.is_file():
+            try:
+                seed = (yaml.safe_load(cfg.read_text()) or {}).get("train", {}).get("seed")
+            except yaml.YAMLError:
+                seed = None
+        rows.append({"run_id": run.name, "arm": label, "seed": seed if isinstance(seed, int) else len(rows),
+                     "state": "done" if summary.is_file() else "failed", "duration": None, "overrides": {},
+                     "run_dir": str(run), "error": None if summary.is_file() else "no summary.json (not finished)",
+                     "metrics": None})
+    data = {"sweep_dir": directory, "baseline": baseline or label_dirs[0][0], "spec": None, "sources": None,
+            "plain": True, "runs": [_load_run(Path(directory), row) for row in rows]}
+    summary = _summarize(data, test, 2000, 0, "metric")
+    summary.update(title="Comparison of runs", directory_label="Output directory")
+    return summary
+
+
+def write_summary(summary: dict[str, Any], out: Path, figures: bool = True) -> Path:
+    """Write a summary (:func:`report_summary`'s, or ``marl-core compare``'s) into ``out``: report.md,
+    runs.csv, findings.json and figures/ (see :func:`write_report`); return ``out``."""
     out.mkdir(parents=True, exist_ok=True)
     if figures:
         drawn = _figures(summary, out / "figures")
