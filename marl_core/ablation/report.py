@@ -1310,15 +1310,32 @@ def _legend(ax: Any, **kwargs: Any) -> None:
     ax.legend(fontsize=8, loc="upper left", bbox_to_anchor=(1.01, 1.0), frameon=False, **kwargs)
 
 
-def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
-    Figure, Canvas = _matplotlib()
-    curves, base, info = summary["curves"], summary["baseline"], summary["arms"]
-    arms = [a for a in summary["arm_order"] if curves[a]["env_steps"]]
+def _curve_axes(summary: dict[str, Any], keep: Any) -> tuple[Any, Any, list[str]] | None:
+    """A new figure and axes for a curve figure and the arms whose curve ``keep`` accepts (None: none)."""
+    arms = [a for a in summary["arm_order"] if keep(summary["curves"][a])]
     if not arms:
-        return False
+        return None
+    Figure, Canvas = _matplotlib()
     fig = Figure(figsize=(7.5, 4.5))
     Canvas(fig)
-    ax = fig.add_subplot()
+    return fig, fig.add_subplot(), arms
+
+
+def _finish_curve(fig: Any, ax: Any, m: str, title: str, path: Path) -> bool:
+    ax.set_ylabel(m)
+    ax.set_title(title, fontsize=10)
+    ax.grid(alpha=0.3)
+    _legend(ax)
+    _save(fig, path)
+    return True
+
+
+def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
+    curves, base, info = summary["curves"], summary["baseline"], summary["arms"]
+    made = _curve_axes(summary, lambda c: c["env_steps"])
+    if made is None:
+        return False
+    fig, ax, arms = made
     for a in arms:
         c = curves[a]
         steps = np.asarray(c["env_steps"], dtype=float)
@@ -1339,27 +1356,18 @@ def _curve_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str
                 ax.axhline(r, color=colours[a], ls="--", lw=1.0,
                            label="random team (per arm, dashed)" if i == 0 else None)
     ax.set_xlabel("updates" if summary.get("learners") == ["lola"] else "environment steps")
-    ax.set_ylabel(m)
-    ax.set_title(f"{m} during training: each seed (thin), mean over seeds, {summary['confidence']:.0%} "
-                 "Student t band",
-                 fontsize=10)
-    ax.grid(alpha=0.3)
-    _legend(ax)
-    _save(fig, path)
-    return True
+    return _finish_curve(fig, ax, m, f"{m} during training: each seed (thin), mean over seeds, "
+                         f"{summary['confidence']:.0%} Student t band", path)
 
 
 def _time_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
     """The learning curve of ``m`` against wall-clock minutes: each seed thin, the arm's mean (mean time,
     mean value at each evaluation step) thick; arms whose runs kept no times are left out."""
-    Figure, Canvas = _matplotlib()
     curves, base = summary["curves"], summary["baseline"]
-    arms = [a for a in summary["arm_order"] if curves[a]["env_steps"] and curves[a].get("wall_seconds")]
-    if not arms:
+    made = _curve_axes(summary, lambda c: c["env_steps"] and c.get("wall_seconds"))
+    if made is None:
         return False
-    fig = Figure(figsize=(7.5, 4.5))
-    Canvas(fig)
-    ax = fig.add_subplot()
+    fig, ax, arms = made
     for a in arms:
         c = curves[a]
         for clock, row in zip(c["wall_seconds_per_seed"], c[m].get("per_seed", [])):
@@ -1367,12 +1375,7 @@ def _time_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str,
         ax.plot(np.asarray(c["wall_seconds"]) / 60.0, c[m]["mean"], color=colours[a],
                 lw=2.4 if a == base else 1.6, label=f"{a} (baseline)" if a == base else a)
     ax.set_xlabel("wall-clock minutes (one run per core, as the sweep ran)")
-    ax.set_ylabel(m)
-    ax.set_title(f"{m} against wall-clock time: each seed (thin), mean over seeds", fontsize=10)
-    ax.grid(alpha=0.3)
-    _legend(ax)
-    _save(fig, path)
-    return True
+    return _finish_curve(fig, ax, m, f"{m} against wall-clock time: each seed (thin), mean over seeds", path)
 
 
 def _bars_figure(summary: dict[str, Any], m: str, path: Path, colours: dict[str, Any]) -> bool:
