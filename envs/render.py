@@ -8,23 +8,32 @@ writes nothing.
 **Palette** (``PALETTE``; the one place it is described). A dark map, so that the few things that matter
 stand out:
 
-================  ===============  ==========================================================
+================  ===============  ==================================================================
 key               RGB              marks
-================  ===============  ==========================================================
+================  ===============  ==================================================================
 ``ground``        (24, 26, 32)     open ground and spawn points
 ``wall``          (92, 96, 110)    walls
 ``orchard``       (38, 52, 40)     orchard cells (a resource may grow here)
 ``resource``      (214, 178, 56)   a resource: a gold disc in the middle of its orchard cell
 ``river``         (28, 116, 124)   clean river cells
-``waste``         (122, 64, 112)   polluted river cells
-``tag``           (236, 96, 176)   cells a tag beam covered this step
-``clean``         (176, 238, 226)  cells a clean beam covered this step
-================  ===============  ==========================================================
+``waste``         (62, 38, 22)     polluted river cells: a dark sludge brown ...
+``waste_speck``   (128, 92, 56)    ... with five light 2x2 specks in each cell (``_SPECKS``)
+``tag``           (236, 96, 176)   the 1-pixel border of each cell a tag beam covered this step
+``clean``         (176, 238, 226)  the 1-pixel border of each cell a clean beam covered this step
+================  ===============  ==================================================================
+
+Waste vs river keeps a WCAG contrast ratio of at least 2 under normal vision and under simulated
+protanopia, deuteranopia and tritanopia (tests/envs/test_render.py; docs/sources.md, "Colour palette"), and
+the specks mark waste by texture as well as colour. Beams colour only each covered cell's border, so the
+waste, river or resource underneath stays visible.
 
 **Agents** are triangles that point the way the agent faces, coloured by index from ``AGENT_COLOURS``: the
 seven colours of Okabe & Ito's colour-universal-design palette other than black (chosen to stay apart under
 the common colour-vision deficiencies; see docs/sources.md, "Colour palette"), then white. Agents 8 and 9
-reuse the first two colours as hollow triangles. Frozen agents are not drawn.
+reuse the first two colours as hollow triangles. A frozen agent is off the map; while it is frozen, a faint
+marker in its colour at half brightness (``_dim``) sits on the cell it left when it was tagged (the engine
+keeps that cell in ``game.cell``; ``agent_positions`` reads it): a 6x6 hollow square for agents 0-7, a 2x2
+dot in the middle for agents 8 and 9. Live agents are drawn over markers.
 """
 
 from __future__ import annotations
@@ -45,7 +54,8 @@ PALETTE: dict[str, tuple[int, int, int]] = {
     "orchard": (38, 52, 40),
     "resource": (214, 178, 56),
     "river": (28, 116, 124),
-    "waste": (122, 64, 112),
+    "waste": (62, 38, 22),
+    "waste_speck": (128, 92, 56),
     "tag": (236, 96, 176),
     "clean": (176, 238, 226),
 }
@@ -87,6 +97,25 @@ _FACING = (_UP, np.rot90(_UP, 2), np.rot90(_UP, 1), np.rot90(_UP, -1))
 _HOLLOW = tuple(_outline(m) for m in _FACING)
 _r, _c = np.mgrid[0:CELL, 0:CELL]
 _DISC = (_r - (CELL - 1) / 2) ** 2 + (_c - (CELL - 1) / 2) ** 2 <= (CELL / 4) ** 2
+_BORDER = (_r == 0) | (_r == CELL - 1) | (_c == 0) | (_c == CELL - 1)  # a beam's mark on a cell
+# five 2x2 specks on a waste cell (four near the corners, one in the middle)
+_SPECKS = np.zeros((CELL, CELL), bool)
+for _y, _x in ((2, 2), (2, 8), (5, 5), (8, 2), (8, 8)):
+    _SPECKS[_y:_y + 2, _x:_x + 2] = True
+# a frozen agent's marker: a 6x6 hollow square (agents 0-7) or a 2x2 dot (agents 8 and 9), centred
+_MARK_SQUARE = _outline((_r >= 3) & (_r <= 8) & (_c >= 3) & (_c <= 8))
+_MARK_DOT = (_r >= 5) & (_r <= 6) & (_c >= 5) & (_c <= 6)
+
+
+def _dim(rgb: tuple[int, int, int]) -> tuple[int, int, int]:
+    """``rgb`` at half brightness: the colour of a frozen agent's marker."""
+    return tuple(int(v) // 2 for v in rgb)
+
+
+def _cells_to_pixels(mask: np.ndarray, tile: np.ndarray) -> np.ndarray:
+    """(H * CELL, W * CELL) bool: ``tile`` ((CELL, CELL) bool) in every cell where ``mask`` ((H, W)) holds."""
+    H, W = mask.shape
+    return np.repeat(np.repeat(mask, CELL, axis=0), CELL, axis=1) & np.tile(tile, (H, W))
 
 
 def _cell_layers(game: Any, index: int) -> dict[str, np.ndarray]:
@@ -101,25 +130,31 @@ def _cell_layers(game: Any, index: int) -> dict[str, np.ndarray]:
 
 
 def grid_frame(game: Any, index: int = 0) -> np.ndarray:
-    """(H * 12, W * 12, 3) uint8 picture of copy ``index``: cells, beams of the last step, agents."""
+    """(H * 12, W * 12, 3) uint8 picture of copy ``index``: cells, beams of the last step (cell borders),
+    markers of frozen agents, agents."""
     H, W = game.layout.shape
     layers = _cell_layers(game, index)
     img = np.empty((H, W, 3), np.uint8)
     img[:] = PALETTE["ground"]
     for name in ("orchard", "river", "wall", "waste"):
         img[layers[name]] = PALETTE[name]
+    big = np.repeat(np.repeat(img, CELL, axis=0), CELL, axis=1)
+    big[_cells_to_pixels(layers["waste"], _SPECKS)] = PALETTE["waste_speck"]
+    big[_cells_to_pixels(layers["resource"], _DISC)] = PALETTE["resource"]
     for kind, copy, cells, reach in game.last_beams:
         mine = copy == index
         y, x = np.divmod(cells[mine][reach[mine]], game.Wp)
         y, x = y - game.P, x - game.P
         inside = (y >= 0) & (y < H) & (x >= 0) & (x < W)
-        img[y[inside], x[inside]] = PALETTE[kind]
-    big = np.repeat(np.repeat(img, CELL, axis=0), CELL, axis=1)
-    ry, rx = np.nonzero(layers["resource"])
-    for y, x in zip(ry, rx):
-        big[y * CELL:(y + 1) * CELL, x * CELL:(x + 1) * CELL][_DISC] = PALETTE["resource"]
+        covered = np.zeros((H, W), bool)
+        covered[y[inside], x[inside]] = True
+        big[_cells_to_pixels(covered, _BORDER)] = PALETTE[kind]
     pos = game.agent_positions(index)
     n = len(AGENT_COLOURS)
+    for i, (y, x) in enumerate(pos):
+        if game.out[index, i]:
+            mark = _MARK_SQUARE if i < n else _MARK_DOT
+            big[y * CELL:(y + 1) * CELL, x * CELL:(x + 1) * CELL][mark] = _dim(AGENT_COLOURS[i % n])
     for i, (y, x) in enumerate(pos):
         if game.out[index, i]:
             continue
