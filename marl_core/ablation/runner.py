@@ -334,7 +334,8 @@ def _run_ray(todo: list[dict], configs: dict, out: Path, ledger: Ledger, workers
         if address:
             ray.init(address=address, include_dashboard=False, log_to_driver=False)
         else:
-            ray.init(num_cpus=workers, include_dashboard=False, log_to_driver=False,
+            # address="local": always a new cluster of our own, even when `ray start` runs on this machine
+            ray.init(address="local", num_cpus=workers, include_dashboard=False, log_to_driver=False,
                      _node_ip_address="127.0.0.1")
     try:
         task = ray.remote(num_cpus=1, max_retries=2)(_ray_task)

@@ -27,7 +27,7 @@ from marl_core.cli import main
 
 REPO = Path(__file__).resolve().parents[2]
 QUICK = REPO / "configs" / "ablations" / "quick.yaml"
-# report.py: METRICS = ("return_mean", *envs.metrics.METRIC_NAMES), one curve_ and one bars_ figure each
+# report.py: METRICS = ("return_mean", *envs.metrics.METRIC_NAMES), one curve_, time_ and bars_ figure each
 FIVE_METRICS = ("return_mean", "efficiency", "equality", "sustainability", "peace")
 # runner.py: SUMMARY_METRICS, the part of summary.json the ledger keeps
 LEDGER_KEYS = ("env_steps", "episodes", "return_mean", "efficiency", "equality", "sustainability", "peace")
@@ -224,7 +224,8 @@ def test_quick_sweep_end_to_end_local(local_sweep, capsys):
     assert {r["env_steps"] for r in csv_rows} == {"5000"}
     # the metrics and harvest's behaviour measures (report.py: waste_removed is cleanup's only)
     measures = [*FIVE_METRICS, "resources_taken", "tags_fired", "times_tagged"]
-    expected = [f"curve_{m}.png" for m in measures] + [f"bars_{m}.png" for m in measures]
+    expected = ([f"curve_{m}.png" for m in measures] + [f"time_{m}.png" for m in measures]
+                + [f"bars_{m}.png" for m in measures])  # report.py _figures: per step, per wall minute, bars
     found = sorted(p.name for p in (report / "figures").glob("*.png"))
     # report.py _axes: a bool override (share_parameters) is not numeric, so there is no axis_ figure
     assert found == sorted(expected)
