@@ -429,10 +429,10 @@ def estimate(spec: str | Path, size: str | None = None, workers: int | None = No
 
     from marl_core.config import config_to_dict
 
+    if workers is not None and workers < 1:
+        raise RunDirError(f"--workers = {workers} is not allowed; expected an integer >= 1")
     sweep = load_spec(spec, size)
     workers = workers or max(1, os.cpu_count() or 1)
-    if workers < 1:
-        raise RunDirError(f"--workers = {workers} is not allowed; expected an integer >= 1")
     threads = torch.get_num_threads()
     torch.set_num_threads(1)
     arms: list[dict[str, Any]] = []

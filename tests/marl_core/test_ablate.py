@@ -54,6 +54,13 @@ def _write_spec(path: Path, spec: dict) -> Path:
     return path
 
 
+def _start_ablate(spec: Path, sweep: Path, tmp_path: Path) -> subprocess.Popen:
+    """``marl-core ablate SPEC --out SWEEP --workers 1`` in a child process, its output in first.out/.err."""
+    cmd = [sys.executable, "-m", "marl_core.cli", "ablate", str(spec), "--out", str(sweep), "--workers", "1"]
+    with open(tmp_path / "first.out", "w") as out, open(tmp_path / "first.err", "w") as err:
+        return subprocess.Popen(cmd, cwd=REPO, stdout=out, stderr=err)
+
+
 def _rows(sweep: Path) -> dict[str, dict]:
     with Ledger(sweep / "ledger.sqlite") as ledger:
         return {r["run_id"]: r for r in ledger.rows()}
@@ -361,9 +368,7 @@ def test_sigkill_mid_sweep_then_rerun_completes(tmp_path):
     sweep = tmp_path / "sweep"
     ledger_path = sweep / "ledger.sqlite"
     cmd = [sys.executable, "-m", "marl_core.cli", "ablate", str(spec), "--out", str(sweep), "--workers", "1"]
-
-    with open(tmp_path / "first.out", "w") as out, open(tmp_path / "first.err", "w") as err:
-        proc = subprocess.Popen(cmd, cwd=REPO, stdout=out, stderr=err)
+    proc = _start_ablate(spec, sweep, tmp_path)
     try:
         deadline = time.monotonic() + 150
         while True:
@@ -445,9 +450,7 @@ def test_a_second_ablate_on_the_same_sweep_refuses_and_runs_nothing_twice(tmp_pa
     spec = _write_spec(tmp_path / "two.yaml", {"base": base, "seeds": [0, 1], "axes": q["axes"],
                                                "baseline": q["baseline"]})
     sweep = tmp_path / "sweep"
-    cmd = [sys.executable, "-m", "marl_core.cli", "ablate", str(spec), "--out", str(sweep), "--workers", "1"]
-    with open(tmp_path / "first.out", "w") as out, open(tmp_path / "first.err", "w") as err:
-        first = subprocess.Popen(cmd, cwd=REPO, stdout=out, stderr=err)
+    first = _start_ablate(spec, sweep, tmp_path)
     try:
         deadline = time.monotonic() + 120
         while not any(s == "running" for s, _ in _peek(sweep / "ledger.sqlite").values()):
