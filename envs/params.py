@@ -2,7 +2,7 @@
 
 A game lists its parameters as :class:`Param` entries; :func:`resolve` checks a user's keyword arguments
 against that list (unknown names, types, bounds) and fills in defaults. The same table feeds
-``envs.list_envs()``, the README and the command line, so a parameter is documented exactly once.
+``envs.list_envs()``, docs/games.md and the command line, so a parameter is documented exactly once.
 
 A game whose parameters depend on one another also offers ``resolve_params(given)`` in its module (matrix_v0:
 ``payoffs`` without ``game`` makes the game ``"custom"``); the game and the run config both resolve through

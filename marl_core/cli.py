@@ -175,7 +175,7 @@ def _envs(args: argparse.Namespace) -> int:
 
 
 def _default_text(value) -> str:
-    """A default as the table shows it: lists as comma-separated numbers (the README's spelling)."""
+    """A default as the table shows it: lists as comma-separated numbers (the spelling of docs/games.md)."""
     if isinstance(value, list):
         return ", ".join(f"{v:g}" if isinstance(v, float) else str(v) for v in value)
     return str(value)

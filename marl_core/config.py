@@ -310,7 +310,8 @@ def _end_not_above_start(cfg: BaseModel, schedule: str) -> None:
 
 
 # the stride of every conv layer when learner.conv_strides is left out, per learner kind (None: the first
-# release's 1 then 2), chosen by learning curves (scripts/compare_encoders.py; README, "Training")
+# release's 1 then 2), chosen by learning curves (scripts/compare_encoders.py; docs/learners.md, "The grid
+# encoder")
 DEFAULT_STRIDE: dict[str, int | None] = {"idqn": 2, "maddpg": None, "ppo": 2}
 
 

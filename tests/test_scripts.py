@@ -1,6 +1,6 @@
 """The benchmark scripts still run: each one, at the smallest settings, exits 0 and prints JSON.
 
-They measure and print (README, performance); nothing here checks a figure. This only catches a script
+They measure and print (docs/performance.md); nothing here checks a figure. This only catches a script
 left behind by a change to the code it drives.
 """
 

@@ -36,7 +36,7 @@ def test_team_names(env_name, teams):
     ("cleanup_v0", "one_cleaner", lambda env: cleanup_team(env, cleaners=1)),
 ], ids=lambda v: v if isinstance(v, str) else "")
 def test_batched_scripted_team_plays_each_copy_as_the_single_env_team_does(game, name, single):
-    # copy b of vector_env(...).reset(seed=s) is parallel_env(...).reset(seed=s + b) (README, tested in envs)
+    # copy b of vector_env(...).reset(seed=s) is parallel_env(...).reset(seed=s + b) (docs/games.md, tested in envs)
     B, seed, steps = 3, 7, 60
     vec = envs.make_vector(game, B, num_agents=3, max_cycles=steps)
     vec.reset(seed=seed)

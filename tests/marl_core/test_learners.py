@@ -406,7 +406,7 @@ def test_maddpg_state_critic_tells_agents_apart():
     N = 3
     spec = game_spec("harvest_v0", N)
     # envs/grid.py docstring (state channels, per_agent): 5 map channels + 3 planes per agent over the map;
-    # harvest_tiny is 9 x 9 (README, maps)
+    # harvest_tiny is 9 x 9 (docs/games.md, "Maps")
     assert critic_input_shape(spec, "state") == (5 + 3 * N, 9, 9)
     game = _world(N, "per_agent")
     state = game.state()

@@ -5,7 +5,7 @@ plays the FINAL policy with exploration off, and asserts on the median over seed
 only on the same CPU and torch build, so no check rests on one seed: the bars sit below the worst seed
 measured on this project's machine by the margins noted beside them, which is what lets them hold on another
 CPU. ``scripts/learning_checks.py`` runs the same checks at their full budgets over five seeds and prints
-the figures the README quotes.
+the figures docs/learning_checks.md quotes.
 """
 
 from pathlib import Path

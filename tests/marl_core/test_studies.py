@@ -3,7 +3,7 @@ writes the finding lines.
 
 A tiny version keeps the study's arms, axes, ``expect`` and ``against`` and shrinks everything else (2 seeds,
 the tiny maps, a few hundred env steps, small networks), so it shows that the machinery runs, not what the
-study finds: the full studies' measured results are in the README, "Studies".
+study finds: the full studies' measured results are in docs/results.md.
 """
 
 from __future__ import annotations
