@@ -4,7 +4,7 @@
 Agents                 ``num_agents`` (default 5), ids ``agent_0`` ...
 Observation            ``Box(0, 1, (9, 2r+1, 2r+1), uint8)``, r = ``view_radius`` (default 7)
 Actions                ``Discrete(7)``: stay, up, down, left, right, tag, clean (``Discrete(6)`` untagged)
-State                  ``Box(0, 1, (5 + 3N, H, W), uint8)`` (``(9, H, W)`` if shared)
+State                  ``Box(0, 1, (5 + 3N, H, W), uint8)`` (``(9, H, W)`` if anonymous)
 =====================  ===================================================================
 
 **Description.** Waste builds up on a river; the orchard, away from the river, grows resources only while
@@ -17,11 +17,11 @@ way it last moved), ``5`` tag (absent when ``tagging`` is false; then clean is `
 ``clean_length`` cells ahead and ``clean_width`` lanes wide that removes the waste it covers.
 
 **Observation.** An egocentric window of uint8 0/1 channels, channels first, in the order of
-``envs.grid.CHANNELS``: wall, resource, waste, river, orchard, agents, self, ahead, frozen (see
+``envs.grid.CHANNELS``: wall, resource, waste, river, orchard, others, self, ahead, frozen (see
 ``envs.grid``). With ``full_view`` it is the whole ``(9, H, W)`` map.
 
 **State.** As in ``harvest_v0``: ``(5 + 3N, H, W)`` by default (the five map channels, then each
-agent's position, ahead and frozen planes), ``(9, H, W)`` with ``state_layout="shared"``; the names are
+agent's position, ahead and frozen planes), ``(9, H, W)`` with ``state_layout="anonymous"``; the names are
 ``envs.grid.state_channels(N, state_layout)``.
 
 **Rewards.** +1 per resource taken; cleaning earns nothing; ``-tag_cost`` per tag beam fired;
@@ -68,8 +68,11 @@ pollution_cap          float  0.5      polluted river fraction at and above whic
 
 **Version history.** v0: first release. Later in v0: the ``horizon`` parameter (default ``"time_limit"``,
 the behaviour of the first release: truncation at ``max_cycles``). Later in v0: the ``state_layout``
-parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="shared"``. Moves,
-observations, rewards and infos are unchanged for the same seed; only ``state()`` (and ``state_space``) differ.
+parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="anonymous"`` (first
+spelled ``"shared"``, now refused naming the new word). Moves, observations, rewards and infos are unchanged
+for the same seed; only ``state()`` (and ``state_space``) differ. Later in v0: the observation channel of
+the other agents is named ``others`` (it was ``agents``, the word the anonymous state keeps for every
+agent); the numbers are unchanged.
 Later in v0: new bundled maps (a river winding between two orchards), and the growth rule above with its
 parameters ``pollution_rate``, ``growth_rate`` and ``pollution_cap``, which replace the first release's
 growth parameters (an old name is refused as unknown, with a note that parameters were renamed).

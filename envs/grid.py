@@ -15,10 +15,12 @@ resource   a resource stands
 waste      waste lies on the river (cleanup)
 river      a river cell (cleanup)
 orchard    a cell where resources can grow (harvest patches, cleanup orchard)
-agents     another agent on the map (shared state: every agent on the map)
-self       the observer's own cell (shared state: all zero)
-ahead      the cell the observer faces, where its beams start (shared state: the cell ahead of every agent)
-frozen     the whole window while the observer is frozen (shared state: the cell each frozen agent left)
+others     another agent on the map (anonymous state: ``agents``, every agent on the map)
+self       the observer's own cell (anonymous state: all zero)
+ahead      the cell the observer faces, where its beams start (anonymous state: the cell ahead of every
+           agent)
+frozen     the whole window while the observer is frozen (anonymous state: the cell each frozen agent
+           left)
 =========  ============================================================================================
 
 State channels (``state_channels(num_agents, layout)``; ``state()`` is ``(C, H, W)`` uint8 0/1 over the map,
@@ -39,9 +41,10 @@ chooses between two layouts:
   ======================  ==============================================================================
 
   Channel ``5 + 3 i + k`` is plane ``k`` (position, ahead, frozen) of agent ``i``.
-* ``"shared"``, ``C = 9``: the observation channels over the whole map, with one anonymous ``agents``
-  channel and one shared ``ahead`` / ``frozen`` channel (the "shared state" variants in the table
-  above); agents cannot be told apart in it.
+* ``"anonymous"``, ``C = 9`` (``ANONYMOUS_STATE_CHANNELS``): the observation channels over the whole map,
+  with ``agents`` (every agent) in place of ``others`` and one ``ahead`` / ``frozen`` channel for all
+  agents (the "anonymous state" variants in the table above); agents cannot be told apart in it. (Before
+  it was named ``"anonymous"`` this layout was ``"shared"``; that spelling is refused, naming the new one.)
 
 Step order, for every copy at once:
 
@@ -84,18 +87,23 @@ from envs.errors import ParamError
 from envs.layouts import Layout, layout_problem, load_layout
 from envs.params import Param, resolve
 
-__all__ = ["CHANNELS", "MAP_CHANNELS", "AGENT_STATE_PLANES", "STATE_LAYOUTS", "MOVE_ACTIONS", "GridGame",
+__all__ = ["CHANNELS", "ANONYMOUS_STATE_CHANNELS", "MAP_CHANNELS", "AGENT_STATE_PLANES", "STATE_LAYOUTS", "MOVE_ACTIONS", "GridGame",
            "grid_params", "state_channels"]
 
-CHANNELS: tuple[str, ...] = ("wall", "resource", "waste", "river", "orchard", "agents", "self", "ahead",
+CHANNELS: tuple[str, ...] = ("wall", "resource", "waste", "river", "orchard", "others", "self", "ahead",
                              "frozen")
 MAP_CHANNELS: tuple[str, ...] = CHANNELS[:5]  # the channels that do not depend on agents
 AGENT_STATE_PLANES: tuple[str, ...] = ("position", "ahead", "frozen")  # per agent, in the per_agent state
-STATE_LAYOUTS: tuple[str, ...] = ("per_agent", "shared")
+#: the anonymous state(): the observation channels over the map, every agent in ``agents``
+ANONYMOUS_STATE_CHANNELS: tuple[str, ...] = (*MAP_CHANNELS, "agents", "self", "ahead", "frozen")
+STATE_LAYOUTS: tuple[str, ...] = ("per_agent", "anonymous")
+#: earlier spellings of state_layout values, refused with the new one
+RENAMED_STATE_LAYOUTS: dict[str, str] = {"shared": "anonymous"}
 MOVE_ACTIONS: tuple[str, ...] = ("stay", "up", "down", "left", "right")
 
-# bit layout of the packed map: one uint8 per cell, one bit per map channel
-_BIT = {"wall": 0, "resource": 1, "waste": 2, "river": 3, "orchard": 4, "agents": 5}
+# bit layout of the packed map: one uint8 per cell, one bit per map channel ("others" is the bit of every
+# agent; _observe clears the observer's own cell from it)
+_BIT = {"wall": 0, "resource": 1, "waste": 2, "river": 3, "orchard": 4, "others": 5}
 _ZERO_BIT = 7  # never set; channels filled per observer read it and come out 0
 _SHIFTS = np.array([_BIT.get(c, _ZERO_BIT) for c in CHANNELS], dtype=np.uint8)[:, None, None]  # (C, 1, 1)
 _CH = {c: i for i, c in enumerate(CHANNELS)}
@@ -132,9 +140,9 @@ def _unit(z: np.ndarray) -> np.ndarray:
 def state_channels(num_agents: int, layout: str = "per_agent") -> tuple[str, ...]:
     """Names of the ``state()`` channels, in order, for ``num_agents`` agents and a ``state_layout``
     (module docstring): ``("wall", ..., "orchard", "agent_0.position", "agent_0.ahead", "agent_0.frozen",
-    "agent_1.position", ...)`` for ``"per_agent"``, ``CHANNELS`` for ``"shared"``."""
-    if layout == "shared":
-        return CHANNELS
+    "agent_1.position", ...)`` for ``"per_agent"``, ``ANONYMOUS_STATE_CHANNELS`` for ``"anonymous"``."""
+    if layout == "anonymous":
+        return ANONYMOUS_STATE_CHANNELS
     if layout != "per_agent":
         raise ParamError(f"state_channels: parameter 'state_layout' = {layout!r} is not allowed; expected one "
                          f"of {', '.join(repr(v) for v in STATE_LAYOUTS)}")
@@ -162,8 +170,8 @@ def grid_params(layout: str, extra: list[Param]) -> list[Param]:
         Param("tagged_penalty", float, 0.0, "reward lost by an agent when it is tagged", low=0.0),
         Param("freeze_steps", int, 25, "steps a tagged agent sits out, off the map", low=0),
         Param("state_layout", str, "per_agent", "what state() returns: 'per_agent' (the map, then position, "
-              "ahead and frozen planes for each agent) or 'shared' (the observation channels, agents anonymous)",
-              choices=STATE_LAYOUTS),
+              "ahead and frozen planes for each agent) or 'anonymous' (the observation channels, agents not told "
+              "apart)", choices=STATE_LAYOUTS, renamed=RENAMED_STATE_LAYOUTS),
         *extra,
     ]
 
@@ -177,7 +185,7 @@ class GridGame(BatchedGame):
         rewards: (B, N) float32;  terminated, truncated: (B, N) bool
         infos: dict of (B, N) int64 event counts of the step (``info_keys``)
         state(): (B, S, H, W) uint8, S = len(self.state_channels): 5 + 3N (``state_layout="per_agent"``) or
-            len(CHANNELS) (``"shared"``)
+            len(CHANNELS) (``"anonymous"``)
     """
 
     PARAMS: ClassVar[list[Param]] = []
@@ -245,7 +253,7 @@ class GridGame(BatchedGame):
         self._beam_tag = self._beam_offsets(*beams[0])
         self._beam_clean = self._beam_offsets(*beams[1]) if self.has_clean_beam else None
         # (channel, bit) of the map channels some cell can show; the others are zero in every observation
-        can = {_BIT["resource"], _BIT["agents"]} | ({_BIT["waste"]} if self.has_clean_beam else set())
+        can = {_BIT["resource"], _BIT["others"]} | ({_BIT["waste"]} if self.has_clean_beam else set())
         can |= {i for i in range(8) if (static >> i & 1).any()}
         self._obs_bits = [(c, int(s)) for c, s in enumerate(_SHIFTS.ravel()) if s in can]
 
@@ -481,7 +489,7 @@ class GridGame(BatchedGame):
         bits |= self._static_bits
         if self.has_clean_beam:
             bits |= np.multiply(self.waste.view(np.uint8), np.uint8(1 << _BIT["waste"]), out=self._bits_tmp)
-        bits.reshape(-1)[(self._cell_base + self.cell)[~self.out]] |= np.uint8(1 << _BIT["agents"])
+        bits.reshape(-1)[(self._cell_base + self.cell)[~self.out]] |= np.uint8(1 << _BIT["others"])
         return bits
 
     def _observe(self) -> np.ndarray:
@@ -512,7 +520,7 @@ class GridGame(BatchedGame):
         ay, ax = cy + _DIRS[f, 0], cx + _DIRS[f, 1]
         flat, K = obs.reshape(-1), kh * kw
         at = rows * (C * K) + cy * kw + cx
-        flat[at + _CH["agents"] * K] = 0
+        flat[at + _CH["others"] * K] = 0
         flat[at + _CH["self"] * K] = 1
         ahead = rows * (C * K) + _CH["ahead"] * K + ay * kw + ax
         if full:  # a window always holds the cell ahead; the bare map may not
@@ -524,8 +532,8 @@ class GridGame(BatchedGame):
 
     def state(self) -> np.ndarray:
         """(B, S, H, W) uint8: the whole map in ``self.state_channels`` (``state_layout``, module docstring)."""
-        if self.params["state_layout"] == "shared":
-            return self._shared_state()
+        if self.params["state_layout"] == "anonymous":
+            return self._anonymous_state()
         P, H, W = self.P, self.H, self.W
         B, N = self.cell.shape
         M = len(MAP_CHANNELS)
@@ -545,8 +553,8 @@ class GridGame(BatchedGame):
         out[fb, M + 3 * fn + 2, y[fb, fn], x[fb, fn]] = 1
         return out
 
-    def _shared_state(self) -> np.ndarray:
-        """(B, C, H, W) uint8: the whole map in the observation channels (``state_layout="shared"``)."""
+    def _anonymous_state(self) -> np.ndarray:
+        """(B, C, H, W) uint8: the whole map in ``ANONYMOUS_STATE_CHANNELS`` (``state_layout="anonymous"``)."""
         P, H, W = self.P, self.H, self.W
         out = (self._pack()[:, None, P:P + H, P:P + W] >> _SHIFTS) & np.uint8(1)
         y, x = np.divmod(self.cell, self.Wp)

@@ -4,7 +4,7 @@
 Agents                 ``num_agents`` (default 5), ids ``agent_0`` ...
 Observation            ``Box(0, 1, (9, 2r+1, 2r+1), uint8)``, r = ``view_radius`` (default 7)
 Actions                ``Discrete(6)``: stay, up, down, left, right, tag (``Discrete(5)`` untagged)
-State                  ``Box(0, 1, (5 + 3N, H, W), uint8)`` (``(9, H, W)`` if shared)
+State                  ``Box(0, 1, (5 + 3N, H, W), uint8)`` (``(9, H, W)`` if anonymous)
 =====================  ===================================================================
 
 **Description.** Agents roam a map with patches of orchard cells. A resource taken leaves its cell empty; an
@@ -18,15 +18,15 @@ way it last moved), ``5`` tag (a beam ``tag_length`` cells ahead and ``tag_width
 ``tagging`` is false).
 
 **Observation.** An egocentric window of uint8 0/1 channels, channels first, in the order of
-``envs.grid.CHANNELS``: wall, resource, waste (always 0 here), river (always 0), orchard, agents, self, ahead,
+``envs.grid.CHANNELS``: wall, resource, waste (always 0 here), river (always 0), orchard, others, self, ahead,
 frozen (see ``envs.grid`` for each). Cells outside the map read as walls. With ``full_view`` the observation
 is the whole ``(9, H, W)`` map instead.
 
 **State.** ``state()`` is the whole map for a centralised critic, in the channels
 ``envs.grid.state_channels(N, state_layout)``: by default (``state_layout="per_agent"``) wall, resource,
 waste, river, orchard, then for each agent i its position, the cell it faces (``ahead``) and, while it
-is frozen, the cell it left (``frozen``), ``(5 + 3N, H, W)``; with ``"shared"`` the 9 observation
-channels with all agents in one anonymous ``agents`` channel (see ``envs.grid``).
+is frozen, the cell it left (``frozen``), ``(5 + 3N, H, W)``; with ``"anonymous"`` 9 channels like the
+observation's, with every agent in one ``agents`` channel, so agents cannot be told apart (see ``envs.grid``).
 
 **Rewards.** +1 per resource taken; ``-tag_cost`` per tag beam fired; ``-tagged_penalty`` when tagged.
 
@@ -67,7 +67,8 @@ tag_cost           float  0.0                  paid by the tagger per beam
 tagged_penalty     float  0.0                  paid by the tagged agent
 freeze_steps       int    25                   steps a tagged agent sits out
 state_layout       str    ``"per_agent"``      what ``state()`` returns: ``"per_agent"`` (map, then
-                                               planes per agent) or ``"shared"`` (anonymous agents)
+                                               planes per agent) or ``"anonymous"`` (agents not
+                                               told apart)
 regrow_radius      int    2                    radius of the neighbourhood counted for regrowth
 regrow_table       list   0,.01,.01,.05,.05,.1 regrowth probability by neighbour count (last: and more)
 regrow_scale       float  1.0                  multiplies every ``regrow_table`` entry, each product clipped
@@ -76,8 +77,11 @@ regrow_scale       float  1.0                  multiplies every ``regrow_table``
 
 **Version history.** v0: first release. Later in v0: the ``horizon`` parameter (default ``"time_limit"``,
 the behaviour of the first release: truncation at ``max_cycles``). Later in v0: the ``state_layout``
-parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="shared"``. Moves,
-observations, rewards and infos are unchanged for the same seed; only ``state()`` (and ``state_space``) differ.
+parameter, default ``"per_agent"``; the first release's ``state()`` is ``state_layout="anonymous"`` (first
+spelled ``"shared"``, now refused naming the new word). Moves, observations, rewards and infos are unchanged
+for the same seed; only ``state()`` (and ``state_space``) differ. Later in v0: the observation channel of
+the other agents is named ``others`` (it was ``agents``, the word the anonymous state keeps for every
+agent); the numbers are unchanged.
 Later in v0: new bundled maps, with patches of many sizes and shapes; episodes on them differ from the first
 release's for the same seed. The rules are unchanged. Later in v0: ``regrow_scale`` (default 1.0, the
 table as given: episodes unchanged for the same seed).

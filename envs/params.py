@@ -33,6 +33,7 @@ class Param:
         low, high: inclusive numeric bounds (for ``list``: bounds of every element), ``None`` for open.
         choices: allowed values for a ``str`` parameter.
         check: extra validation; returns an error text (what is allowed) or ``None``.
+        renamed: earlier spellings of ``str`` values, old -> new; an old one is refused naming the new one.
     """
 
     name: str
@@ -43,6 +44,7 @@ class Param:
     high: float | None = None
     choices: tuple[str, ...] | None = None
     check: Callable[[Any], str | None] | None = None
+    renamed: dict[str, str] | None = None
 
     def allowed(self) -> str:
         """Human-readable description of the allowed values."""
@@ -78,6 +80,9 @@ class Param:
                 raise fail()
             out = float(value)
         elif self.kind is str:
+            if self.renamed and isinstance(value, str) and value in self.renamed:
+                raise ParamError(f"{game}: parameter '{self.name}' = {value!r} was renamed: use "
+                                 f"{self.renamed[value]!r}")
             if not isinstance(value, str) or (self.choices is not None and value not in self.choices):
                 raise fail()
             out = value

@@ -9,7 +9,7 @@ rollout path as the learned team, on the same env copies and the same episode se
 team                plays on                               rule
 ==================  =====================================  ==============================================
 ``random``          every env                              each agent picks a uniformly random action
-``noop``            our grid games, mpe2 envs              every agent always plays action 0, which is
+``stay``            our grid games, mpe2 envs              every agent always plays action 0, which is
                                                            *stay* in our grid games and *no action* in
                                                            mpe2 (not offered where action 0 does something)
 ``greedy``          ``harvest_v0``                         walk to the nearest resource and take it
@@ -21,7 +21,8 @@ team                plays on                               rule
 ==================  =====================================  ==============================================
 
 :func:`team_names` says which teams apply to an env; :func:`measure` plays them. The scripted grid teams
-read the whole map (``envs.scripted``); they are rules, not learners, and never tag.
+read the whole map (``envs.scripted``); they are rules, not learners, and never tag. The ``stay`` team was
+first named ``noop``; that name is refused wherever a team is named, with the new one (:data:`RENAMED_TEAMS`).
 """
 
 from __future__ import annotations
@@ -38,15 +39,24 @@ from marl_core.errors import ConfigError
 from marl_core.rollout import evaluate, random_policy
 from marl_core.team_env import GameTeamEnv, TeamEnv
 
-__all__ = ["ALWAYS", "KNOWN", "team_names", "measured_teams", "make_team", "measure", "landmark_walk", "strongest"]
+__all__ = ["ALWAYS", "KNOWN", "RENAMED_TEAMS", "renamed_team", "team_names", "measured_teams", "make_team", "measure", "landmark_walk", "strongest"]
 
 ALWAYS = ("random",)
 _SPREAD = "mpe2.simple_spread_v3:"
-KNOWN: tuple[str, ...] = (*ALWAYS, "noop", *SCRIPTED, "landmark_walk")
+KNOWN: tuple[str, ...] = (*ALWAYS, "stay", *SCRIPTED, "landmark_walk")
 """Every baseline team name (``train.baselines`` accepts these)."""
+RENAMED_TEAMS: dict[str, str] = {"noop": "stay"}
+"""Earlier team names -> today's: refused where a team is named, naming the new one."""
 
 
-def _noop_applies(env_name: str) -> bool:
+def renamed_team(field: str, name: object) -> str | None:
+    """``"FIELD = 'noop' was renamed: use 'stay'"`` for an earlier team name, else None."""
+    if isinstance(name, str) and name in RENAMED_TEAMS:
+        return f"{field} = {name!r} was renamed: use {RENAMED_TEAMS[name]!r}"
+    return None
+
+
+def _stay_applies(env_name: str) -> bool:
     """Action 0 does nothing in our grid games (stay) and in mpe2's discrete actions (no action)."""
     return (env_name in GAMES and env_name != "matrix_v0") or env_name.startswith("mpe2.")
 
@@ -54,8 +64,8 @@ def _noop_applies(env_name: str) -> bool:
 def team_names(env_name: str) -> tuple[str, ...]:
     """Every baseline team that applies to ``env_name`` (an ``env.name`` of a run config), in order."""
     names = list(ALWAYS)
-    if _noop_applies(env_name):
-        names.append("noop")
+    if _stay_applies(env_name):
+        names.append("stay")
     names += [t for t, (games, _) in SCRIPTED.items() if env_name in games]
     if env_name.startswith(_SPREAD):
         names.append("landmark_walk")
@@ -100,7 +110,7 @@ def make_team(name: str, env: TeamEnv, seed: int) -> Callable[[np.ndarray], np.n
                           f"{', '.join(team_names(env.name))}")
     if name == "random":
         return random_policy(env.spec.num_actions, seed)
-    if name == "noop":
+    if name == "stay":
         return lambda obs: np.zeros(obs.shape[:2], np.int64)
     if name == "landmark_walk":
         return landmark_walk(env.spec.num_agents)

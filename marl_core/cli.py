@@ -105,7 +105,7 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--out", required=True, help="new directory for crossplay.csv, crossplay.json, heatmaps")
     c.add_argument("--episodes", type=int, default=32, help="episodes per seating (default: 32)")
     c.add_argument("--with", dest="members", action="append", default=[], metavar="NAME",
-                   help="a non-learning member as a source: random, noop or a scripted team of the game "
+                   help="a non-learning member as a source: random, stay or a scripted team of the game "
                    "(repeatable)")
     c.add_argument("--by", choices=("pool", "seat"), default="pool",
                    help="pool: one heatmap per measure, the focal seats pooled (default); seat: also one per "
@@ -236,7 +236,7 @@ def _table(summary: dict) -> str:
     from marl_core.baselines import KNOWN
 
     teams = summary.get("baselines") or {"random": summary.get("random") or {}}
-    # random, noop, then the scripted teams: one order whether the summary is fresh or read from JSON
+    # random, stay, then the scripted teams: one order whether the summary is fresh or read from JSON
     order = {n: i for i, n in enumerate(KNOWN)}
     teams = {n: teams[n] for n in sorted(teams, key=lambda n: (order.get(n, len(order)), n))}
     width = max(10, *(len(n) + 2 for n in teams))

@@ -148,6 +148,17 @@ def _not_allowed(key: str, value: Any, allowed: str) -> str:
     return f"{key} = {_show(value)} is not allowed: expected {allowed}"
 
 
+# Values that an earlier version accepted under another name (key -> {old: new}): the old spelling is
+# refused in one line naming the new one. "shared" meant three things; each now has a word of its own.
+RENAMED_VALUES: dict[str, dict[str, str]] = {"learner.critic": {"shared": "one_network"}}
+
+
+def _renamed_value(key: str, value: Any) -> str | None:
+    """The one-line refusal of a value that was renamed, or None."""
+    new = RENAMED_VALUES.get(key, {}).get(value) if isinstance(value, str) else None
+    return None if new is None else f"{key} = {_show(value)} was renamed: use {new!r}"
+
+
 # Keys that an earlier version accepted under another name: the old name is refused with the new one.
 RENAMED: dict[str, str] = {"learner.priority_beta0": "learner.priority_beta_start",
                            "learner.learning_starts": "learner.warmup_steps",
@@ -259,6 +270,9 @@ def _resolve_game_params(game: str, given: dict[str, Any]) -> dict[str, Any]:
             param.validate(value, game)
         except ParamError as err:
             text = str(err)
+            if " was renamed: " in text:  # an earlier spelling of the value (envs.params.Param.renamed)
+                raise _own_error(f"env.params.{key} = {_show(value)} was renamed: "
+                                 f"{text.split(' was renamed: ', 1)[1]}") from None
             allowed = text.split("; expected ", 1)[1] if "; expected " in text else param.allowed()
             raise _own_error(_not_allowed(f"env.params.{key}", value, allowed)) from None
     resolver = getattr(module, "resolve_params", None)
@@ -441,8 +455,8 @@ class MADDPGConfig(_LearnerBase):
     gamma: float = _gamma(0.95)
     lr: float = _lr(1e-3, "critic")
     batch_size: _Int = _batch_size(256)
-    critic: Literal["shared", "per_agent"] = Field("shared", description="one critic for the team "
-                                                   "(shared) or one per agent")
+    critic: Literal["one_network", "per_agent"] = Field("one_network", description="one critic network "
+                                                        "for the team (one_network) or one per agent")
     critic_input: Literal["auto", "state", "observations"] = Field("auto", description="what the critic "
                                                                    "sees besides the actions: observations "
                                                                    "= every agent's observation stacked "
@@ -454,6 +468,14 @@ class MADDPGConfig(_LearnerBase):
                                                                    "and faster "
                                                                    "(scripts/compare_critic_inputs.py)")
     actor_lr: float = Field(1e-3, gt=0.0, description="Adam learning rate of the actors")
+
+    @field_validator("critic", mode="before")
+    @classmethod
+    def _critic_renamed(cls, value: Any) -> Any:
+        line = _renamed_value("learner.critic", value)
+        if line:
+            raise _own_error(line)
+        return value
     tau: float = Field(0.01, gt=0.0, le=1.0, description="Polyak step of the target networks per update")
     gumbel_temperature: float = Field(1.0, gt=0.0, description="temperature of the straight-through "
                                       "Gumbel-softmax")
@@ -611,9 +633,11 @@ class TrainConfig(BaseModel):
     @model_validator(mode="after")
     def _check_baselines(self) -> TrainConfig:
         if self.baselines != "auto":
-            from marl_core.baselines import KNOWN
+            from marl_core.baselines import KNOWN, renamed_team
 
             for name in self.baselines:
+                if renamed_team("train.baselines", name):
+                    raise _own_error(renamed_team("train.baselines", name))
                 if name not in KNOWN:
                     raise _own_error(_not_allowed("train.baselines", name,
                                                   f"'auto' or a list of: {', '.join(KNOWN)}"))
@@ -712,7 +736,7 @@ class SeatConfig(BaseModel):
         "rollouts of its own seats)")
     policy: str | None = Field(None, description="a saved policy, kept fixed: a policy file for one seat, or a "
                                "run's policies/ directory (one <agent>.pt per seat)")
-    member: str | None = Field(None, description="a non-learning member: random, noop or one of the game's "
+    member: str | None = Field(None, description="a non-learning member: random, stay or one of the game's "
                                "scripted teams (each seat plays its part of the team's rule)")
 
     @model_validator(mode="before")
@@ -1214,6 +1238,7 @@ def load_stored_config(path: str | os.PathLike) -> RunConfig:
     """
     data, _ = read_yaml_mapping(path, "config file", f"a mapping of sections ({', '.join(SECTIONS)})")
     data = copy.deepcopy(data or {})
+    _respell(data, _FIRST_SPELLING_TO_NEW)  # a run written before a value was renamed loads as it ran
     learner = data.get("learner")
     if isinstance(learner, dict):
         kind = LEARNERS.get(learner.get("kind", "idqn"))
@@ -1248,9 +1273,38 @@ _ADDED_GAME_PARAMS: dict[str, Any] = {"regrow_scale": 1.0}
 _NOT_SET = object()
 
 
+# Values renamed after the first release (RENAMED_VALUES, envs' Param.renamed), where a resolved config holds
+# them: (section, key) -> {first spelling: today's}. A stored run config is read with today's words, and
+# config_hash hashes the first spelling, so a run keeps its id (and its checkpoints) across a rename.
+_FIRST_SPELLING_TO_NEW: dict[tuple[str, str], dict[str, str]] = {
+    ("learner", "critic"): {"shared": "one_network"},  # only maddpg's critic took this word
+    ("params", "state_layout"): {"shared": "anonymous"},
+}
+_NEW_TO_FIRST_SPELLING = {where: {new: old for old, new in words.items()}
+                          for where, words in _FIRST_SPELLING_TO_NEW.items()}
+
+
+def _respell(data: dict[str, Any], table: dict[tuple[str, str], dict[str, str]]) -> None:
+    """Replace, in place, the words of ``table`` in a config dict: the top-level learner, env.params and
+    each seat's learner."""
+    learners = [data.get("learner")]
+    seats = data.get("seats")
+    if isinstance(seats, dict):
+        learners += [s.get("learner") for s in seats.values() if isinstance(s, dict)]
+    places = [("learner", x) for x in learners] + [("params", (data.get("env") or {}).get("params"))
+                                                  if isinstance(data.get("env"), dict) else ("params", None)]
+    for section, where in places:
+        if not isinstance(where, dict):
+            continue
+        for (sec, key), words in table.items():
+            if sec == section and isinstance(where.get(key), str) and where[key] in words:
+                where[key] = words[where[key]]
+
+
 def config_hash(cfg: RunConfig) -> str:
     """A stable 12-hex-digit digest of the resolved config (same config, same hash, in any process)."""
     data = config_to_dict(cfg)
+    _respell(data, _NEW_TO_FIRST_SPELLING)
     # keys added after the first release drop out at the values that behave as before, so the configs of
     # earlier runs keep their hash (run ids in sweep ledgers, checkpoints to resume)
     if data["reward"] == RewardConfig().model_dump(mode="python"):

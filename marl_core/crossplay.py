@@ -3,7 +3,7 @@
 ``marl-core crossplay RUN_DIR RUN_DIR ... --out DIR [--episodes N] [--with NAME ...]``
 
 Sources are the runs' saved per-agent policies (``RUN_DIR/policies/<agent>.pt``) and, with ``--with``,
-non-learning members: ``random``, ``noop`` where it applies, or one of the game's scripted teams
+non-learning members: ``random``, ``stay`` where it applies, or one of the game's scripted teams
 (:mod:`marl_core.baselines`), whose member in a seat plays that seat's part of the team's rule. Runs given
 as ``LABEL=RUN_DIR`` with the same label form one source whose runs are its seeds.
 
@@ -40,7 +40,7 @@ import numpy as np
 
 from envs.metrics import METRIC_NAMES
 from marl_core.ablation.stats import t_interval
-from marl_core.baselines import make_team, team_names
+from marl_core.baselines import make_team, renamed_team, team_names
 from marl_core.config import load_stored_config
 from marl_core.errors import CheckpointError, RunDirError
 from marl_core.files import atomic_write, finite
@@ -177,6 +177,8 @@ def crossplay(items: list[str], out: str | Path, episodes: int = 32, members: li
                               f"seat agents of one game only")
     allowed = team_names(name)
     for m in members:
+        if renamed_team("crossplay: --with", m):
+            raise RunDirError(renamed_team("crossplay: --with", m))
         if m not in allowed:
             raise RunDirError(f"crossplay: --with {m!r} is not allowed for {name!r}; expected one of "
                               f"{', '.join(allowed)}")

@@ -5,7 +5,7 @@
     seats:
       agent_0: {learner: {kind: maddpg}}                       # a learner of its own
       agent_1,agent_2: {policy: runs/earlier/policies}         # saved policies, kept fixed
-      agent_3: {member: greedy}                                # a scripted member (or random, noop)
+      agent_3: {member: greedy}                                # a scripted member (or random, stay)
 
 Agents not named form one more group with the top-level ``learner`` (idqn or maddpg: it owns the replay
 keys). A group's learner sees only its own seats: its observations, actions and rewards are the group's columns of the joint transition, and a
@@ -74,7 +74,7 @@ def _reads_state(learner: Any) -> bool:
 
 def parse_groups(cfg: Any, agents: tuple[str, ...], env_name: str) -> list[Group]:
     """The seat groups of a run config (``cfg.seats``) over the env's ``agents``, checked."""
-    from marl_core.baselines import team_names
+    from marl_core.baselines import renamed_team, team_names
 
     taken: dict[str, str] = {}
     groups: list[Group] = []
@@ -87,6 +87,8 @@ def parse_groups(cfg: Any, agents: tuple[str, ...], env_name: str) -> list[Group
             if a in taken:
                 raise ConfigError(f"seats.{key}: {a} is already seated by seats.{taken[a]}; each agent sits once")
             taken[a] = key
+        if renamed_team(f"seats.{key}.member", seat.member):
+            raise ConfigError(renamed_team(f"seats.{key}.member", seat.member))
         if seat.member is not None and seat.member not in team_names(env_name):
             raise ConfigError(f"seats.{key}.member = {seat.member!r} is not allowed for {env_name}; expected one "
                               f"of {', '.join(team_names(env_name))}")

@@ -89,7 +89,7 @@ def main(argv: list[str] | None = None) -> int:
             "env_steps": summary["env_steps"],
             "maddpg": measure(learned, args.episodes, seed=10_000),
             "random": measure(lambda obs: {a: int(rng.integers(5)) for a in obs}, args.episodes, seed=10_000),
-            "noop": measure(lambda obs: dict.fromkeys(obs, 0), args.episodes, seed=10_000),
+            "stay": measure(lambda obs: dict.fromkeys(obs, 0), args.episodes, seed=10_000),
             "landmark_walk": measure(walker, args.episodes, seed=10_000),
             "published": PUBLISHED,
         }
@@ -98,7 +98,7 @@ def main(argv: list[str] | None = None) -> int:
     else:
         print(f"simple_spread_v3, 3 agents, {result['env_steps']} env steps of MADDPG training")
         print(f"{'':<14}{'return':>10}{'distance':>10}{'collisions':>12}")
-        for k in ("maddpg", "random", "noop", "landmark_walk"):
+        for k in ("maddpg", "random", "stay", "landmark_walk"):
             m = result[k]
             print(f"{k:<14}{m['return_mean']:>10.2f}{m['average_distance']:>10.3f}{m['collisions']:>12.3f}")
         for k in ("maddpg", "ddpg"):

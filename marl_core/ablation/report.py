@@ -38,7 +38,7 @@ baseline
 (sustainability when no agent scores, equality when returns sum to <= 0) are dropped and counted.
 
 Non-learning teams: each run's ``summary.json`` may carry ``baselines`` (team name -> the learned team's
-metric keys, e.g. ``random``, ``noop``, ``greedy``); an older summary without it contributes its top-level
+metric keys, e.g. ``random``, ``stay``, ``greedy``); an older summary without it contributes its top-level
 ``random`` as the one team. Per arm and metric the report shows each team's mean over the arm's runs, and
 says in words where the arm is not better than the strongest team: where the lower end of the arm's
 interval of the mean is not above that team's mean.

@@ -652,8 +652,10 @@ def parse_spec(data: Any, base_dir: str | os.PathLike | None = None, size: str |
         if len(arms) > 1:
             raise ConfigError(f"against = {_show(against)} compares one arm with a non-learning team; this "
                               f"spec has {len(arms)} arms (compare arms with 'baseline' instead)")
-        from marl_core.baselines import measured_teams
+        from marl_core.baselines import measured_teams, renamed_team
 
+        if renamed_team("against", against):
+            raise ConfigError(renamed_team("against", against))
         measured = measured_teams(runs[0].config)
         if against not in measured:
             raise ConfigError(f"against = {_show(against)} is not a team these runs measure; expected one of "

@@ -5,7 +5,7 @@ agent-id input). The critic sees the joint input x — every agent's observation
 (``critic_input: observations``; grid windows are stacked as channels, ``(N * C, 2r+1, 2r+1)``), or the env's
 global state (``critic_input: state``; on our grid games by default the map channels and a position, ahead and
 frozen plane per agent, ``(5 + 3N, H, W)``, see ``envs.grid``) — together with every agent's one-hot action,
-and returns one value per agent. ``critic: shared`` is one network with a value head per agent;
+and returns one value per agent. ``critic: one_network`` is one network with a value head per agent;
 ``per_agent`` is one network per agent. Actors learn through the straight-through Gumbel-softmax; targets
 are Polyak-averaged copies. At evaluation, and in any saved policy, the actors act alone from local
 observations.
@@ -171,7 +171,7 @@ class MADDPG:
                                     hidden=cfg.hidden, conv_channels=cfg.conv_channels, dueling=False,
                                     conv_strides=cfg.conv_strides)
             self.critic = CentralCritic(critic_input_shape(spec, source), N, A, cfg.hidden,
-                                        tuple(cfg.conv_channels), cfg.critic == "shared",
+                                        tuple(cfg.conv_channels), cfg.critic == "one_network",
                                         cfg.conv_strides)
         self.target_actors = copy.deepcopy(self.actors).requires_grad_(False)
         self.target_critic = copy.deepcopy(self.critic).requires_grad_(False)

@@ -354,7 +354,7 @@ def test_grid_rejects_unknown_horizon_on_one_line():
                               "'terminal', 'time_limit'")
 
 
-@pytest.mark.parametrize("state_layout", ["per_agent", "shared"])
+@pytest.mark.parametrize("state_layout", ["per_agent", "anonymous"])
 @pytest.mark.parametrize("game", ["harvest_v0", "cleanup_v0"])
 def test_grid_project_checks_pass_for_both_state_layouts(game, state_layout):
     from envs.checks import check_game
@@ -370,4 +370,4 @@ def test_grid_rejects_unknown_state_layout_on_one_line():
         harvest.vector_env(1, state_layout="per-agent")
     # envs/errors.py: the message names the parameter, the value and what is allowed, on one line
     assert str(err.value) == ("harvest_v0: parameter 'state_layout' = 'per-agent' is not allowed; expected one "
-                              "of 'per_agent', 'shared'")
+                              "of 'per_agent', 'anonymous'")

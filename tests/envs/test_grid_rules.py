@@ -16,10 +16,11 @@ from scipy.stats import binomtest
 
 import envs.cleanup_v0 as cleanup
 import envs.harvest_v0 as harvest
-from envs.errors import ActionError, LayoutError
-from envs.grid import CHANNELS, state_channels
+from envs.errors import ActionError, LayoutError, ParamError
+from envs.grid import ANONYMOUS_STATE_CHANNELS, CHANNELS, state_channels
 
 CH = {c: i for i, c in enumerate(CHANNELS)}
+SCH = {c: i for i, c in enumerate(ANONYMOUS_STATE_CHANNELS)}  # state_layout="anonymous"
 
 # actions: envs/harvest_v0.py and envs/cleanup_v0.py docstrings (0 stay, 1 up, 2 down, 3 left, 4 right,
 # 5 tag, 6 clean; without tagging clean is 5)
@@ -403,19 +404,19 @@ def test_tag_hits_the_position_after_moves(tmp_path):
 
 def test_tagged_agent_leaves_the_map(tmp_path):
     env = harvest.parallel_env(layout=write_layout(tmp_path, CORRIDOR), num_agents=2, view_radius=3,
-                               freeze_steps=5, state_layout="shared")
+                               freeze_steps=5, state_layout="anonymous")
     env.reset(seed=0)
     game = env.game
     place(game, 0, 2, 1, facing="right")
     place(game, 1, 2, 3)
     before = env.step({"agent_0": STAY, "agent_1": STAY})[0]
-    assert before["agent_0"][CH["agents"]].sum() == 1  # agent_1 in view before the tag
+    assert before["agent_0"][CH["others"]].sum() == 1  # agent_1 in view before the tag
     obs, *_ = env.step({"agent_0": TAG, "agent_1": STAY})
     assert game.out[0, 1]
     # rule stated in envs/grid.py docstring (step 4): a tagged agent leaves the map, so others do not see it
-    assert obs["agent_0"][CH["agents"]].sum() == 0
-    # shared state(): every agent on the map -- only agent_0 now
-    assert env.state()[CH["agents"]].sum() == 1
+    assert obs["agent_0"][CH["others"]].sum() == 0
+    # anonymous state(): every agent on the map -- only agent_0 now
+    assert env.state()[SCH["agents"]].sum() == 1
     # CHANNELS table: 'frozen' is the whole window while the observer is frozen
     assert np.all(obs["agent_1"][CH["frozen"]] == 1)
     assert obs["agent_1"][CH["self"]].sum() == 0
@@ -627,7 +628,7 @@ def test_observation_channels(tmp_path):
     expected = {
         "resource": [(2, 3)],   # CHANNELS table: a resource stands
         "orchard": [(2, 3), (4, 4)],  # CHANNELS table: the '+' and '-' cells (legend in envs/layouts.py)
-        "agents": [(3, 4)],     # CHANNELS table: another agent (not the observer)
+        "others": [(3, 4)],     # CHANNELS table: another agent (not the observer)
         "self": [(2, 2)],       # CHANNELS table: the observer's own cell, the window centre
         "ahead": [(2, 3)],      # CHANNELS table: the cell the observer faces
         "waste": [], "river": [], "frozen": [],  # harvest_v0 docstring: waste and river always 0 here
@@ -688,20 +689,20 @@ def _tagged_room_state(tmp_path, **params):
     return game, env.state()
 
 
-def test_shared_state_channels(tmp_path):
-    game, st = _tagged_room_state(tmp_path, state_layout="shared")
+def test_anonymous_state_channels(tmp_path):
+    game, st = _tagged_room_state(tmp_path, state_layout="anonymous")
     layout = game.layout
-    # harvest_v0 docstring: (9, H, W) uint8 with state_layout="shared"
+    # harvest_v0 docstring: (9, H, W) uint8 with state_layout="anonymous"
     assert st.shape == (9, 7, 9) and st.dtype == np.uint8
-    # envs/grid.py docstring (CHANNELS table, "shared state" variants)
-    assert np.array_equal(st[CH["wall"]], layout.wall)
-    assert np.array_equal(st[CH["resource"]], layout.resource)
-    assert np.array_equal(st[CH["orchard"]], layout.orchard)
-    assert st[CH["waste"]].sum() == 0 and st[CH["river"]].sum() == 0
-    assert sorted(map(tuple, np.argwhere(st[CH["agents"]]).tolist())) == [(1, 4), (3, 1)]  # on the map
-    assert st[CH["self"]].sum() == 0  # state(): all zero
-    assert sorted(map(tuple, np.argwhere(st[CH["ahead"]]).tolist())) == [(2, 4), (3, 2)]
-    assert np.argwhere(st[CH["frozen"]]).tolist() == [[3, 3]]  # the cell the frozen agent left
+    # envs/grid.py docstring (CHANNELS table, "anonymous state" variants)
+    assert np.array_equal(st[SCH["wall"]], layout.wall)
+    assert np.array_equal(st[SCH["resource"]], layout.resource)
+    assert np.array_equal(st[SCH["orchard"]], layout.orchard)
+    assert st[SCH["waste"]].sum() == 0 and st[SCH["river"]].sum() == 0
+    assert sorted(map(tuple, np.argwhere(st[SCH["agents"]]).tolist())) == [(1, 4), (3, 1)]  # on the map
+    assert st[SCH["self"]].sum() == 0  # state(): all zero
+    assert sorted(map(tuple, np.argwhere(st[SCH["ahead"]]).tolist())) == [(2, 4), (3, 2)]
+    assert np.argwhere(st[SCH["frozen"]]).tolist() == [[3, 3]]  # the cell the frozen agent left
 
 
 # per-agent state (envs/grid.py docstring, "State channels"): the five map channels, then for agent i the planes
@@ -730,7 +731,15 @@ def test_state_channel_names():
     assert state_channels(2) == ("wall", "resource", "waste", "river", "orchard",
                                  "agent_0.position", "agent_0.ahead", "agent_0.frozen",
                                  "agent_1.position", "agent_1.ahead", "agent_1.frozen")
-    assert state_channels(3, "shared") == CHANNELS  # shared: the observation channels
+    # anonymous: the observation channels, with every agent in 'agents' in place of 'others'
+    assert state_channels(3, "anonymous") == ("wall", "resource", "waste", "river", "orchard", "agents", "self",
+                                              "ahead", "frozen")
+
+
+@pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
+def test_the_old_state_layout_spelling_is_refused_naming_the_new_one(module):
+    with pytest.raises(ParamError, match=r"^\S+: parameter 'state_layout' = 'shared' was renamed: use 'anonymous'$"):
+        module.parallel_env(layout={harvest: "harvest_tiny", cleanup: "cleanup_tiny"}[module], state_layout="shared")
 
 
 @pytest.mark.parametrize("num_agents", [1, 2, 4])
@@ -840,11 +849,11 @@ def test_per_agent_state_of_cleanup_shows_river_and_waste(tmp_path):
 
 @pytest.mark.parametrize("module", [harvest, cleanup], ids=["harvest_v0", "cleanup_v0"])
 def test_both_state_layouts_describe_one_world(module):
-    # envs/grid.py docstring: the shared channels are the per-agent planes merged (agents anonymous) and the
+    # envs/grid.py docstring: the anonymous channels are the per-agent planes merged (agents anonymous) and the
     # map channels are the same; held on a random rollout with tagging, so agents freeze and return
     layout = {harvest: "harvest_tiny", cleanup: "cleanup_tiny"}[module]
     kw = {"layout": layout, "num_agents": 3, "view_radius": 2, "freeze_steps": 3}
-    per, shared = module.vector_env(2, **kw), module.vector_env(2, state_layout="shared", **kw)
+    per, shared = module.vector_env(2, **kw), module.vector_env(2, state_layout="anonymous", **kw)
     per.reset(seed=5)
     shared.reset(seed=5)
     rng = np.random.default_rng(0)
@@ -857,7 +866,7 @@ def test_both_state_layouts_describe_one_world(module):
         assert np.array_equal(p[:, :5], s[:, :5])
         for plane, channel in (("position", "agents"), ("ahead", "ahead"), ("frozen", "frozen")):
             merged = np.bitwise_or.reduce(p[:, [MAP + 3 * i + PLANE[plane] for i in range(3)]], axis=1)
-            assert np.array_equal(merged, s[:, CH[channel]]), plane
+            assert np.array_equal(merged, s[:, SCH[channel]]), plane
         # one plane per agent: exactly one position cell while on the map, one frozen cell while off it
         on = p[:, MAP::3].sum(axis=(2, 3))
         off = p[:, MAP + 2::3].sum(axis=(2, 3))
@@ -891,7 +900,7 @@ def test_full_view_is_the_whole_map(tmp_path):
     assert o.shape == (9, 7, 9)
     assert np.array_equal(o[CH["wall"]], game.layout.wall)
     assert np.argwhere(o[CH["self"]]).tolist() == [[3, 1]]
-    assert np.argwhere(o[CH["agents"]]).tolist() == [[1, 4]]  # the other agent only
+    assert np.argwhere(o[CH["others"]]).tolist() == [[1, 4]]  # the other agent only
     assert np.argwhere(o[CH["ahead"]]).tolist() == [[3, 2]]
     assert np.argwhere(obs["agent_1"][CH["self"]]).tolist() == [[1, 4]]
 
@@ -908,7 +917,7 @@ s....
 @pytest.mark.parametrize(("cell", "action"), [((0, 2), UP), ((4, 2), DOWN), ((2, 0), LEFT), ((2, 4), RIGHT)],
                          ids=["up", "down", "left", "right"])
 def test_full_view_ahead_outside_the_map_is_not_marked(tmp_path, cell, action):
-    game = new_game(tmp_path, BORDERLESS, num_agents=1, full_view=True, state_layout="shared")
+    game = new_game(tmp_path, BORDERLESS, num_agents=1, full_view=True, state_layout="anonymous")
     place(game, 0, *cell)
     obs, *_ = act(game, action)  # blocked by the edge (cells outside count as walls), turns outward
     # CHANNELS table: 'ahead' is the cell the observer faces; that cell is outside the (H, W) view, so no

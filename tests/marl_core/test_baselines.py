@@ -18,11 +18,11 @@ SPREAD = "mpe2.simple_spread_v3:parallel_env"
 
 
 @pytest.mark.parametrize("env_name, teams", [
-    ("harvest_v0", ("random", "noop", "greedy", "restrained")),
-    ("cleanup_v0", ("random", "noop", "nobody_cleans", "one_cleaner")),
+    ("harvest_v0", ("random", "stay", "greedy", "restrained")),
+    ("cleanup_v0", ("random", "stay", "nobody_cleans", "one_cleaner")),
     ("matrix_v0", ("random",)),  # action 0 cooperates there: it is no no-op
     ("gymnasium:CartPole-v1", ("random",)),  # action 0 pushes left
-    (SPREAD, ("random", "noop", "landmark_walk")),
+    (SPREAD, ("random", "stay", "landmark_walk")),
 ], ids=lambda v: v if isinstance(v, str) else "")
 def test_team_names(env_name, teams):
     assert team_names(env_name) == teams
@@ -73,14 +73,14 @@ def test_landmark_walk_moves_along_the_longer_axis_and_rests_when_close():
     assert landmark_walk(2)(obs)[0, 0] == 4
 
 
-def test_landmark_walk_beats_random_and_noop_teams_on_mpe2_spread():
+def test_landmark_walk_beats_random_and_stay_teams_on_mpe2_spread():
     env = make_team_env(SPREAD, {"N": 3, "max_cycles": 25, "continuous_actions": False}, 8, 0)
     walk = evaluate(env, landmark_walk(3), 40, 100)["return_mean"]
-    noop = evaluate(env, make_team("noop", env, 0), 40, 100)["return_mean"]
+    stay = evaluate(env, make_team("stay", env, 0), 40, 100)["return_mean"]
     rand = evaluate(env, random_policy(5, 0), 40, 100)["return_mean"]
     env.close()
-    # measured here over 100 episodes: walk -10.3, noop -23.5, random -26.0; margin 5 is ours (no source)
-    assert walk > noop + 5.0 and walk > rand + 5.0, (walk, noop, rand)
+    # measured here over 100 episodes: walk -10.3, stay -23.5, random -26.0; margin 5 is ours (no source)
+    assert walk > stay + 5.0 and walk > rand + 5.0, (walk, stay, rand)
 
 
 def test_make_team_refuses_a_team_of_another_game():
@@ -90,7 +90,7 @@ def test_make_team_refuses_a_team_of_another_game():
 
 
 def test_strongest_skips_missing_values():
-    teams = {"random": {"efficiency": 0.1}, "noop": {"efficiency": float("nan")}, "greedy": {"efficiency": 0.4}}
+    teams = {"random": {"efficiency": 0.1}, "stay": {"efficiency": float("nan")}, "greedy": {"efficiency": 0.4}}
     assert strongest(teams, "efficiency") == ("greedy", 0.4)
     assert strongest({"random": {"efficiency": None}}, "efficiency") is None
 
@@ -109,12 +109,12 @@ def test_summary_and_evaluate_carry_every_baseline_on_the_same_episodes(tmp_path
     summary = run(_tiny(), tmp_path / "r")
     keys = {"eval_episodes", "returns", "return_mean", "episode_length", "efficiency", "equality",
             "sustainability", "peace"}
-    assert set(summary["baselines"]) == {"random", "noop", "greedy", "restrained"}
+    assert set(summary["baselines"]) == {"random", "stay", "greedy", "restrained"}
     for team, res in summary["baselines"].items():
         assert keys <= set(res), team
         assert res["eval_episodes"] == summary["eval_episodes"] == 3
     assert summary["random"] == summary["baselines"]["random"]
-    assert summary["baselines"]["noop"]["return_mean"] == 0.0  # nobody moves, nobody picks
+    assert summary["baselines"]["stay"]["return_mean"] == 0.0  # nobody moves, nobody picks
     ev = evaluate_run(tmp_path / "r", episodes=5)
     assert ev["eval_episodes"] == 5
     assert all(res["eval_episodes"] == 5 for res in ev["baselines"].values())

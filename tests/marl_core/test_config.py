@@ -319,7 +319,7 @@ def test_schema_table_bounds():
     assert rows["learner.grad_clip", "idqn"]["type"] == "float | null"  # lola has no networks to clip
     assert rows["learner.torch_threads", None]["bounds"] == ">= 1"
     assert rows["learner.gamma", "lola"]["bounds"] == "in [0, 1)"
-    assert rows["learner.critic", "maddpg"]["bounds"] == "one of 'shared', 'per_agent'"
+    assert rows["learner.critic", "maddpg"]["bounds"] == "one of 'one_network', 'per_agent'"
     assert rows["train.seed", None]["bounds"] == ">= 0"
 
 

@@ -150,11 +150,11 @@ IDQN_CASES = [
 MADDPG_CASES = [
     pytest.param({"share_parameters": share, "critic": critic, "critic_input": source},
                  id=f"maddpg-{'shared' if share else 'indep'}-critic_{critic}-{source}")
-    for share in (False, True) for critic in ("shared", "per_agent") for source in ("observations", "state")
+    for share in (False, True) for critic in ("one_network", "per_agent") for source in ("observations", "state")
 ]
 # TensorBoard with a GIF at every evaluation in one case; three agents in two of the cases with a shared net
 LOGGED = "idqn-shared-double-dueling-nstep3-per-harvest_v0"
-THREE_AGENTS = ("idqn-shared-double-dueling-nstep3-per", "maddpg-shared-critic_shared-observations")
+THREE_AGENTS = ("idqn-shared-double-dueling-nstep3-per", "maddpg-shared-critic_one_network-observations")
 
 
 @pytest.mark.parametrize("game", GAMES)
@@ -352,7 +352,7 @@ def test_maddpg_actors_act_without_the_critic(share, tmp_path):
         np.testing.assert_array_equal(policy.act(obs[:, i]), before[:, i])
 
 
-@pytest.mark.parametrize("critic", ["shared", "per_agent"])
+@pytest.mark.parametrize("critic", ["one_network", "per_agent"])
 def test_maddpg_critic_sees_the_joint_action(critic):
     spec = game_spec("harvest_v0", 2)
     learner = build_learner(spec, learner_config("maddpg", critic=critic, critic_input="observations"), seed=0)
@@ -425,17 +425,17 @@ def test_maddpg_state_critic_tells_agents_apart():
     assert ((q[:, :2] - q_swapped[:, :2]).abs() > 1e-6).all()
 
 
-def test_shared_state_critic_cannot_tell_agents_apart():
+def test_anonymous_state_critic_cannot_tell_agents_apart():
     N = 3
-    game = _world(N, "shared")
+    game = _world(N, "anonymous")
     state = game.state()
-    assert state.shape[1:] == (9, 9, 9)  # envs/grid.py docstring (shared): the 9 observation channels
+    assert state.shape[1:] == (9, 9, 9)  # envs/grid.py docstring (anonymous): 9 channels
     _swap_agents(game, 0, 1)
-    # agents are anonymous in the shared layout: the swapped world has the same state, byte for byte
+    # agents are anonymous in this layout: the swapped world has the same state, byte for byte
     assert np.array_equal(game.state(), state)
     actions = np.random.default_rng(0).integers(game.action_space.n, size=(4, N))
-    q = _state_critic_values("shared", state, actions)
-    assert torch.equal(q, _state_critic_values("shared", game.state(), actions))  # so Q_i cannot move
+    q = _state_critic_values("anonymous", state, actions)
+    assert torch.equal(q, _state_critic_values("anonymous", game.state(), actions))  # so Q_i cannot move
 
 
 def test_maddpg_auto_critic_input():

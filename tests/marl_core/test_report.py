@@ -386,13 +386,13 @@ def test_report_never_imports_torch(sweep):
 # ------------------------------------------------------------------------------ non-learning teams
 def team_values(k: int, seed: int) -> dict:
     """Invented ``baselines`` of arm k's run at a seed (demo data only): ``greedy`` forages well (strong on
-    efficiency, with a wobble that averages out over seeds 0..4), ``noop`` never moves (all returns 0, so it is
+    efficiency, with a wobble that averages out over seeds 0..4), ``stay`` never moves (all returns 0, so it is
     perfectly equal and never tags: peace = 3 agents), ``random`` as in the older summaries."""
     wobble = 0.01 * (seed - 2)  # sums to 0 over seeds 0..4 (hand-computed)
     rand = random_values(k)
     return {
         "random": {"eval_episodes": 4, "episode_length": 100.0, **rand},
-        "noop": {"eval_episodes": 4, "returns": dict.fromkeys(AGENTS, 0.0), "return_mean": 0.0,
+        "stay": {"eval_episodes": 4, "returns": dict.fromkeys(AGENTS, 0.0), "return_mean": 0.0,
                  "episode_length": 100.0, "efficiency": 0.0, "equality": 1.0, "sustainability": None,
                  "peace": 3.0},
         "greedy": {"eval_episodes": 4, "returns": dict.fromkeys(AGENTS, 5.0), "return_mean": 5.0,
@@ -411,15 +411,15 @@ def team_sweep(tmp_path_factory):
 
 def test_team_means_and_the_strongest_team(team_sweep):
     s, text, _ = team_sweep
-    assert s["baseline_teams"] == ["random", "noop", "greedy"]  # order of first appearance in summary.json
+    assert s["baseline_teams"] == ["random", "stay", "greedy"]  # order of first appearance in summary.json
     eff = s["arms"][ARMS[0]]["metrics"]["efficiency"]
     # invented data (team_values), the greedy wobble averages out over seeds 0..4
-    assert eff["teams"] == pytest.approx({"random": 0.3, "noop": 0.0, "greedy": 3.3})
+    assert eff["teams"] == pytest.approx({"random": 0.3, "stay": 0.0, "greedy": 3.3})
     assert eff["best_team"] == "greedy" and eff["best_team_mean"] == pytest.approx(3.3)
     sus = s["arms"][ARMS[1]]["metrics"]["sustainability"]
-    assert set(sus["teams"]) == {"random", "greedy"}  # noop's sustainability is null (NaN): left out
+    assert set(sus["teams"]) == {"random", "greedy"}  # stay's sustainability is null (NaN): left out
     assert sus["best_team"] == "greedy"  # 150 > random's 120 (invented data)
-    assert "| arm | n | mean [95% CI, Student t] | IQM [95% CI, trimmed t] | std | random | noop | greedy |" in text
+    assert "| arm | n | mean [95% CI, Student t] | IQM [95% CI, trimmed t] | std | random | stay | greedy |" in text
     row = next(line for line in text.split("### efficiency")[1].splitlines() if line.startswith(f"| `{ARMS[0]}`"))
     assert row.endswith("| 0.3 | 0 | **3.3** |")  # the strongest team in bold
 
@@ -429,9 +429,9 @@ def test_arms_not_better_than_the_strongest_team_are_named(team_sweep):
     # invented data: efficiency 2 + k + 0.1 seed -> means 2.2, 3.2, 4.2 with Student t half-width
     # t_{0.975, 4} * 0.1 * sd(0..4) / sqrt(5) = 2.776 * 0.1581 / 2.236 = 0.196 (scipy.stats.t.ppf, hand-computed);
     # greedy 3.3 lies above arm 0's interval, inside arm 1's and below arm 2's. equality (0.72, 0.77, 0.815 +- 0.02)
-    # and peace (2.1, 2.3, 2.5 +- 0.1) lie wholly below noop's 1.0 and 3.0.
+    # and peace (2.1, 2.3, 2.5 +- 0.1) lie wholly below stay's 1.0 and 3.0.
     expected = {(ARMS[0], "efficiency", "greedy", "below"), (ARMS[1], "efficiency", "greedy", "reaches_below")}
-    expected |= {(a, "equality", "noop", "below") for a in ARMS} | {(a, "peace", "noop", "below") for a in ARMS}
+    expected |= {(a, "equality", "stay", "below") for a in ARMS} | {(a, "peace", "stay", "below") for a in ARMS}
     assert {(d["arm"], d["metric"], d["team"], d["reason"]) for d in s["not_better"]} == expected
     for k, arm in enumerate(ARMS):
         runs = [final_values(k, seed)["efficiency"] for seed in SEEDS]  # every run done in this sweep
@@ -458,12 +458,12 @@ def test_runs_csv_has_a_column_per_team_and_metric(team_sweep):
     with open(team_sweep[2] / "runs.csv", newline="") as f:
         rows = {r["run_id"]: r for r in csv.DictReader(f)}
     cols = next(iter(rows.values())).keys()
-    for team in ("random", "noop", "greedy"):
+    for team in ("random", "stay", "greedy"):
         for m in METRICS:
             assert f"baseline/{team}/{m}" in cols
     assert float(rows["run0s3"]["baseline/greedy/efficiency"]) == pytest.approx(3.31)  # 3.3 + 0.01 (seed 3)
-    assert rows["run1s0"]["baseline/noop/sustainability"] == ""  # JSON null: NaN, written empty
-    assert float(rows["run2s4"]["baseline/noop/peace"]) == 3.0  # invented data
+    assert rows["run1s0"]["baseline/stay/sustainability"] == ""  # JSON null: NaN, written empty
+    assert float(rows["run2s4"]["baseline/stay/peace"]) == 3.0  # invented data
 
 
 def test_old_summaries_without_baselines_fall_back_to_random(summary, sweep):
@@ -503,7 +503,7 @@ def test_the_ledger_copy_keeps_the_non_learning_teams(tmp_path):
     s = report_summary(root, reps=REPS)
     run = next(r for r in s["runs"] if r["run_id"] == "run1s3")
     assert run["baselines"]["greedy"]["efficiency"] == pytest.approx(3.3 + 0.01)  # team_values(1, 3)
-    assert run["baselines"]["noop"]["peace"] == 3.0
+    assert run["baselines"]["stay"]["peace"] == 3.0
 
 
 # ------------------------------------------------------------------------------------ smoke tests

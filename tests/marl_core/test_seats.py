@@ -180,7 +180,7 @@ def test_an_interrupted_mixed_run_resumes_every_seat(tmp_path):
 @pytest.mark.parametrize("seats, message", [
     ({"agent_7": {"member": "random"}}, r"^seats\.agent_7: 'agent_7' is not an agent of harvest_v0; expected one of "
                                         r"agent_0, agent_1, agent_2"),
-    ({"agent_0": {"member": "random"}, "agent_0,agent_1": {"member": "noop"}},
+    ({"agent_0": {"member": "random"}, "agent_0,agent_1": {"member": "stay"}},
      r"^seats\.agent_0,agent_1: agent_0 is already seated by seats\.agent_0"),
     ({"agent_0": {"member": "shepherd"}}, r"^seats\.agent_0\.member = 'shepherd' is not allowed for harvest_v0"),
     ({"agent_0,agent_1,agent_2": {"member": "random"}}, r"^seats: every agent is a fixed policy or a member"),

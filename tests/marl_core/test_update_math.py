@@ -83,7 +83,7 @@ def perturb(module: torch.nn.Module, seed: int, scale: float = 0.5) -> None:
         p.add_(torch.randn(p.shape, generator=gen) * scale)
 
 
-def build_maddpg(critic: str = "shared", share: bool = False, source: str = "observations", seed: int = 0):
+def build_maddpg(critic: str = "one_network", share: bool = False, source: str = "observations", seed: int = 0):
     """A MADDPG learner whose online actors differ from its target actors, and whose target critic differs
     from its critic, so that a target built from the wrong nets gives a different update."""
     learner = build_learner(team_spec(), learner_config("maddpg", critic=critic, share_parameters=share,
@@ -261,8 +261,8 @@ def assert_differs(module, opt, hand_module, hand_opt, what: str):
 
 
 # ---------------------------------------------------------------------------------------------- MADDPG critic
-@pytest.mark.parametrize(("critic", "source"), [("shared", "observations"), ("per_agent", "observations"),
-                                                ("shared", "state")])
+@pytest.mark.parametrize(("critic", "source"), [("one_network", "observations"), ("per_agent", "observations"),
+                                                ("one_network", "state")])
 def test_maddpg_critic_step_uses_the_target_actors_and_target_critic(critic, source):
     learner = build_maddpg(critic=critic, source=source)
     batch = make_batch(seed=3)
@@ -287,7 +287,7 @@ def test_maddpg_critic_step_uses_the_target_actors_and_target_critic(critic, sou
 
 # ---------------------------------------------------------------------------------------------- MADDPG actors
 @pytest.mark.parametrize("share", [False, True], ids=["indep", "shared"])
-@pytest.mark.parametrize("critic", ["shared", "per_agent"])
+@pytest.mark.parametrize("critic", ["one_network", "per_agent"])
 def test_maddpg_actor_step_is_the_straight_through_gumbel_policy_gradient(critic, share):
     learner = build_maddpg(critic=critic, share=share)
     batch = make_batch(seed=4)
@@ -324,7 +324,7 @@ def test_maddpg_actor_step_is_the_straight_through_gumbel_policy_gradient(critic
 
 
 # ---------------------------------------------------------------------------------------------- critic vs actor
-@pytest.mark.parametrize("critic", ["shared", "per_agent"])
+@pytest.mark.parametrize("critic", ["one_network", "per_agent"])
 def test_the_critic_is_trainable_again_after_the_actor_step(critic):
     # maddpg.update freezes the critic for the actor step only (no critic gradient is computed there);
     # the next critic step must find every parameter trainable again (common practice, no source)
@@ -334,7 +334,7 @@ def test_the_critic_is_trainable_again_after_the_actor_step(critic):
     assert not any(p.requires_grad for p in learner.target_critic.parameters())
 
 
-@pytest.mark.parametrize("critic", ["shared", "per_agent"])
+@pytest.mark.parametrize("critic", ["one_network", "per_agent"])
 def test_the_actor_step_leaves_the_critic_alone(critic):
     learner = build_maddpg(critic=critic)
     batch = make_batch(seed=5)
